@@ -1,0 +1,130 @@
+//! Drawing rows from a known mixture for tests (Box–Muller normals from a seeded ChaCha8).
+
+use mixgauge_engine::{CovarianceForm, Mixture};
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+
+pub struct Sampler {
+    rng: ChaCha8Rng,
+    spare: Option<f64>,
+}
+
+impl Sampler {
+    pub fn new(seed: u64) -> Self {
+        Sampler {
+            rng: ChaCha8Rng::seed_from_u64(seed),
+            spare: None,
+        }
+    }
+
+    pub fn uniform(&mut self) -> f64 {
+        ((self.rng.next_u64() >> 11) as f64 + 0.5) / (1u64 << 53) as f64
+    }
+
+    /// A standard normal draw (Box–Muller).
+    pub fn normal(&mut self) -> f64 {
+        if let Some(z) = self.spare.take() {
+            return z;
+        }
+        let (u, v) = (self.uniform(), self.uniform());
+        let r = (-2.0 * u.ln()).sqrt();
+        let t = std::f64::consts::TAU * v;
+        self.spare = Some(r * t.sin());
+        r * t.cos()
+    }
+
+    /// `n` rows from `model`, row-major.
+    pub fn rows(&mut self, model: &Mixture, n: usize) -> Vec<f64> {
+        let d = model.dims();
+        let k = model.components();
+        let chol: Vec<Vec<f64>> = (0..k).map(|c| cholesky(&model.covariance(c), d)).collect();
+        let mut out = Vec::with_capacity(n * d);
+        let mut z = vec![0.0; d];
+        for _ in 0..n {
+            let u = self.uniform();
+            let mut c = 0;
+            let mut acc = model.weights()[0];
+            while u > acc && c + 1 < k {
+                c += 1;
+                acc += model.weights()[c];
+            }
+            for v in z.iter_mut() {
+                *v = self.normal();
+            }
+            for i in 0..d {
+                let mut x = model.mean(c)[i];
+                for j in 0..=i {
+                    x += chol[c][i * d + j] * z[j];
+                }
+                out.push(x);
+            }
+        }
+        out
+    }
+}
+
+/// Dense lower Cholesky factor of a D×D row-major SPD matrix.
+pub fn cholesky(a: &[f64], d: usize) -> Vec<f64> {
+    let mut l = vec![0.0; d * d];
+    for i in 0..d {
+        for j in 0..=i {
+            let mut s = a[i * d + j];
+            for q in 0..j {
+                s -= l[i * d + q] * l[j * d + q];
+            }
+            l[i * d + j] = if i == j { s.sqrt() } else { s / l[j * d + j] };
+        }
+    }
+    l
+}
+
+/// A well-separated mixture of `k` components in `d` dimensions with correlated covariances.
+pub fn separated(k: usize, d: usize, form: CovarianceForm, seed: u64) -> Mixture {
+    let mut s = Sampler::new(seed);
+    let raw: Vec<f64> = (0..k).map(|c| 1.0 + c as f64).collect();
+    let total: f64 = raw.iter().sum();
+    let weights = raw.iter().map(|w| w / total).collect();
+    let mut means = Vec::new();
+    for c in 0..k {
+        for j in 0..d {
+            means.push(
+                if j == c % d {
+                    8.0 * (1 + c / d) as f64
+                } else {
+                    0.0
+                } + 0.3 * s.normal(),
+            );
+        }
+    }
+    let mut covs = Vec::new();
+    for _ in 0..k {
+        match form {
+            CovarianceForm::Full => {
+                // A = B Bᵀ/d + 0.5 I with B random: SPD, moderately correlated.
+                let b: Vec<f64> = (0..d * d).map(|_| s.normal()).collect();
+                for i in 0..d {
+                    for j in 0..d {
+                        let mut v = if i == j { 0.5 } else { 0.0 };
+                        for q in 0..d {
+                            v += b[i * d + q] * b[j * d + q] / d as f64;
+                        }
+                        covs.push(v);
+                    }
+                }
+            }
+            CovarianceForm::Diagonal => {
+                for _ in 0..d {
+                    covs.push(0.5 + s.uniform());
+                }
+            }
+        }
+    }
+    Mixture::new(form, weights, means, covs).expect("a valid test mixture")
+}
+
+pub fn mean_and_stderr(v: &[f64]) -> (f64, f64) {
+    let n = v.len() as f64;
+    let mean = v.iter().sum::<f64>() / n;
+    let var = v.iter().map(|x| (x - mean) * (x - mean)).sum::<f64>() / (n - 1.0);
+    (mean, (var / n).sqrt())
+}
