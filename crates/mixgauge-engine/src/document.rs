@@ -7,7 +7,7 @@
 use serde::{Deserialize, Serialize};
 
 use crate::Error;
-use crate::fit::{Fit, Termination};
+use crate::fit::{Fit, RestartOutcome, Termination};
 use crate::form::CovarianceForm;
 use crate::model::Mixture;
 use crate::stats::Reseed;
@@ -42,10 +42,10 @@ pub struct FitRecord {
     pub ridge: Vec<f64>,
     /// Seed of the random streams.
     pub seed: u64,
-    /// Winning restart and the number of restarts.
+    /// The winning restart.
     pub restart: usize,
-    /// Number of restarts run.
-    pub restarts: usize,
+    /// What every restart reached, in restart order.
+    pub restarts: Vec<RestartOutcome>,
     /// Mean per-row log-likelihood after each update.
     pub trace: Vec<f64>,
     /// Components re-seeded or held during the fit.
@@ -118,7 +118,7 @@ impl ModelDocument {
             ridge: fit.ridge.clone(),
             seed,
             restart: fit.restart,
-            restarts: fit.restarts.len(),
+            restarts: fit.restarts.clone(),
             trace: fit.trace.clone(),
             reseeds: fit.reseeds.clone(),
         });

@@ -231,43 +231,75 @@ pub fn fit_until(
     options: &FitOptions,
     stop: &(dyn Fn() -> bool + Sync),
 ) -> Result<Fit, Error> {
-    options.validate(rows)?;
+    let fits: Vec<Result<Fit, Error>> = (0..options.restarts)
+        .into_par_iter()
+        .map(|r| fit_restart(rows, options, r, stop))
+        .collect();
+    Ok(best_of(fits.into_iter().collect::<Result<Vec<_>, _>>()?))
+}
+
+/// Runs restart number `restart` of `options` alone (`options.restarts` is ignored). The
+/// result equals that restart's run inside [`fit`], so a scheduler can spread restarts over
+/// workers and combine them with [`best_of`].
+///
+/// # Errors
+/// As [`fit_until`].
+pub fn fit_restart(
+    rows: &Rows,
+    options: &FitOptions,
+    restart: usize,
+    stop: &(dyn Fn() -> bool + Sync),
+) -> Result<Fit, Error> {
+    let mut one = options.clone();
+    one.restarts = 1;
+    one.validate(rows)?;
     rows.check_finite()?;
     let moments = ColumnMoments::of(rows)?;
     let ridge = ridge_values(options.ridge, &moments.variances);
-    let runs: Vec<Result<Run, Error>> = (0..options.restarts)
-        .into_par_iter()
-        .map(|r| run(rows, options, &ridge, &moments, r, stop))
-        .collect();
-    let mut best: Option<Run> = None;
-    let mut outcomes = Vec::with_capacity(runs.len());
-    let mut reseeds = Vec::new();
-    for run in runs {
-        let run = run?;
-        outcomes.push(RestartOutcome {
+    let run = run(rows, options, &ridge, &moments, restart, stop)?;
+    Ok(Fit {
+        rows: rows.len(),
+        loglik: run.loglik,
+        iterations: run.iterations,
+        termination: run.termination,
+        restarts: vec![RestartOutcome {
             restart: run.restart,
             mean_loglik: run.loglik / rows.len() as f64,
             iterations: run.iterations,
             termination: run.termination,
-        });
-        reseeds.extend(run.reseeds.iter().cloned());
-        if best.as_ref().is_none_or(|b| run.loglik > b.loglik) {
-            best = Some(run);
+        }],
+        model: run.model,
+        trace: run.trace,
+        reseeds: run.reseeds,
+        ridge,
+        restart: run.restart,
+    })
+}
+
+/// The best of several restarts of one fit: the highest log-likelihood wins, ties going to the
+/// lower restart number; the outcomes and re-seeding events of all are kept, in restart order.
+///
+/// # Panics
+/// If `fits` is empty.
+pub fn best_of(mut fits: Vec<Fit>) -> Fit {
+    assert!(!fits.is_empty(), "best_of needs at least one fit");
+    fits.sort_by_key(|f| f.restart);
+    let mut outcomes = Vec::new();
+    let mut reseeds = Vec::new();
+    for f in &fits {
+        outcomes.extend(f.restarts.iter().cloned());
+        reseeds.extend(f.reseeds.iter().cloned());
+    }
+    let mut best = 0;
+    for (i, f) in fits.iter().enumerate() {
+        if f.loglik > fits[best].loglik {
+            best = i;
         }
     }
-    let best = best.expect("at least one restart");
-    Ok(Fit {
-        model: best.model,
-        rows: rows.len(),
-        loglik: best.loglik,
-        iterations: best.iterations,
-        termination: best.termination,
-        trace: best.trace,
-        reseeds,
-        ridge,
-        restart: best.restart,
-        restarts: outcomes,
-    })
+    let mut winner = fits.swap_remove(best);
+    winner.restarts = outcomes;
+    winner.reseeds = reseeds;
+    winner
 }
 
 /// The per-column ridge for the chosen rule.

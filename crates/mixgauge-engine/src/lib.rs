@@ -42,7 +42,10 @@ pub use dispatch::force_portable_kernels;
 pub use dispatch::kernel_variant;
 pub use document::{FitRecord, MODEL_FORMAT, ModelDocument};
 pub use error::Error;
-pub use fit::{Fit, FitOptions, RestartOutcome, Ridge, Start, Termination, fit, fit_until};
+pub use fit::{
+    Fit, FitOptions, RestartOutcome, Ridge, Start, Termination, best_of, fit, fit_restart,
+    fit_until,
+};
 pub use form::CovarianceForm;
 pub use model::{Mixture, ScoreSummary};
 pub use rows::Rows;

@@ -2,7 +2,7 @@
 
 use mixgauge_engine::{CovarianceForm, Fit, FitOptions, ModelDocument, Rows, Start, fit};
 
-use crate::sample::{Sampler, separated};
+use mixgauge_testkit::{Sampler, separated};
 
 fn bits(f: &Fit) -> String {
     // The document prints every number in shortest round-trip form: equal text ⇔ equal bits.

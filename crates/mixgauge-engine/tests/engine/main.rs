@@ -3,5 +3,4 @@
 
 mod degenerate;
 mod determinism;
-mod sample;
 mod textbook;

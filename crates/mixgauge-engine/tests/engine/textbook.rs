@@ -2,7 +2,7 @@
 
 use mixgauge_engine::{CovarianceForm, FitOptions, Mixture, Rows, fit};
 
-use crate::sample::{Sampler, mean_and_stderr, separated};
+use mixgauge_testkit::{Sampler, mean_and_stderr, separated};
 
 /// Gibbs' inequality: E_p[ln q] ≤ E_p[ln p] for any density q, so a fitted model's mean
 /// held-out log-likelihood cannot beat the true mixture's mean log-density beyond sampling
@@ -52,7 +52,7 @@ fn one_gaussian_reaches_the_normal_entropy() {
     options.ridge = mixgauge_engine::Ridge::Absolute(0.0);
     let fitted = fit(&rows, &options).unwrap();
     let log_det = |m: &Mixture| {
-        let l = crate::sample::cholesky(&m.covariance(0), d);
+        let l = mixgauge_testkit::cholesky(&m.covariance(0), d);
         2.0 * (0..d).map(|i| l[i * d + i].ln()).sum::<f64>()
     };
     let entropy_of =

@@ -1,15 +1,18 @@
-//! Drawing rows from a known mixture for tests (Box–Muller normals from a seeded ChaCha8).
+//! Test helpers shared by the mixgauge crates: rows drawn from a known mixture (Box–Muller
+//! normals from a seeded ChaCha8) and well-separated test mixtures. Dev-only.
 
 use mixgauge_engine::{CovarianceForm, Mixture};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 
+/// A seeded source of uniform and normal draws.
 pub struct Sampler {
     rng: ChaCha8Rng,
     spare: Option<f64>,
 }
 
 impl Sampler {
+    /// A sampler whose draws depend only on `seed`.
     pub fn new(seed: u64) -> Self {
         Sampler {
             rng: ChaCha8Rng::seed_from_u64(seed),
@@ -17,6 +20,7 @@ impl Sampler {
         }
     }
 
+    /// A uniform draw in (0, 1).
     pub fn uniform(&mut self) -> f64 {
         ((self.rng.next_u64() >> 11) as f64 + 0.5) / (1u64 << 53) as f64
     }
@@ -80,6 +84,12 @@ pub fn cholesky(a: &[f64], d: usize) -> Vec<f64> {
 
 /// A well-separated mixture of `k` components in `d` dimensions with correlated covariances.
 pub fn separated(k: usize, d: usize, form: CovarianceForm, seed: u64) -> Mixture {
+    spaced(k, d, form, seed, 8.0)
+}
+
+/// Like [`separated`], with component means `spacing` apart along the axes (smaller spacing,
+/// more overlap).
+pub fn spaced(k: usize, d: usize, form: CovarianceForm, seed: u64, spacing: f64) -> Mixture {
     let mut s = Sampler::new(seed);
     let raw: Vec<f64> = (0..k).map(|c| 1.0 + c as f64).collect();
     let total: f64 = raw.iter().sum();
@@ -89,7 +99,7 @@ pub fn separated(k: usize, d: usize, form: CovarianceForm, seed: u64) -> Mixture
         for j in 0..d {
             means.push(
                 if j == c % d {
-                    8.0 * (1 + c / d) as f64
+                    spacing * (1 + c / d) as f64
                 } else {
                     0.0
                 } + 0.3 * s.normal(),
@@ -122,6 +132,7 @@ pub fn separated(k: usize, d: usize, form: CovarianceForm, seed: u64) -> Mixture
     Mixture::new(form, weights, means, covs).expect("a valid test mixture")
 }
 
+/// Mean and standard error (sd with divisor n−1, over √n).
 pub fn mean_and_stderr(v: &[f64]) -> (f64, f64) {
     let n = v.len() as f64;
     let mean = v.iter().sum::<f64>() / n;

@@ -1,0 +1,187 @@
+//! Command-line grammar (clap). Defaults are stated in each option's help.
+
+use std::path::PathBuf;
+
+use clap::{Args, Parser, Subcommand};
+use mixgauge_engine::CovarianceForm;
+
+/// How many Gaussian mixture components does your data support?
+#[derive(Debug, Parser)]
+#[command(name = "mixgauge", version, about, propagate_version = true)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Fit one mixture by EM and write its model document.
+    Fit(FitArgs),
+    /// Score rows under a saved model: per-row log-likelihoods and a summary.
+    Score(ScoreArgs),
+    /// Fit every candidate (component count × covariance form) on k folds and on all rows,
+    /// and report training vs held-out log-likelihood, BIC, AIC and ICL.
+    Sweep(SweepArgs),
+}
+
+/// Component counts, ascending without repeats.
+#[derive(Debug, Clone)]
+pub struct Counts(pub Vec<usize>);
+
+/// Component counts: `1..12`, `2,4,6` or `5`.
+pub fn parse_counts(text: &str) -> Result<Counts, String> {
+    let bad =
+        || format!("\"{text}\" is not a list of component counts; write e.g. 1..12, 2,4,6 or 5");
+    let mut out = Vec::new();
+    for part in text.split(',') {
+        let part = part.trim();
+        if let Some((a, b)) = part.split_once("..") {
+            let a: usize = a.trim().parse().map_err(|_| bad())?;
+            let b: usize = b
+                .trim()
+                .trim_start_matches('=')
+                .parse()
+                .map_err(|_| bad())?;
+            if a > b {
+                return Err(format!(
+                    "the range {a}..{b} is empty; write the smaller count first"
+                ));
+            }
+            out.extend(a..=b);
+        } else {
+            out.push(part.parse().map_err(|_| bad())?);
+        }
+    }
+    out.sort_unstable();
+    out.dedup();
+    Ok(Counts(out))
+}
+
+#[derive(Debug, Args)]
+pub struct SweepArgs {
+    #[command(flatten)]
+    pub input: InputArgs,
+    /// Component counts to try: a range `1..12`, a list `2,4,6`, or one count.
+    #[arg(long, default_value = "1..12", value_parser = parse_counts)]
+    pub components: Counts,
+    /// Covariance forms to try, comma-separated.
+    #[arg(long, value_delimiter = ',', default_value = "full,diagonal")]
+    pub covariance: Vec<CovarianceForm>,
+    /// Cross-validation folds.
+    #[arg(long, default_value_t = 5)]
+    pub folds: usize,
+    #[command(flatten)]
+    pub em: EmArgs,
+    /// A column of labels (e.g. known classes) to compare each candidate with; never used to choose.
+    #[arg(long)]
+    pub labels: Option<String>,
+    /// Standardise columns before fitting (results are still reported in the data's own units).
+    #[arg(long)]
+    pub standardise: bool,
+    /// Where to write the result document (JSON).
+    #[arg(long)]
+    pub out: Option<std::path::PathBuf>,
+    /// Print the result document on standard output instead of the summary.
+    #[arg(long)]
+    pub json: bool,
+}
+
+/// Which rows and columns of the input file to use.
+#[derive(Debug, Args)]
+pub struct InputArgs {
+    /// The data: CSV with a header row, NPY, or JSON (by extension, else by content).
+    pub file: PathBuf,
+    /// Feature columns to use, comma-separated [default: every numeric column].
+    #[arg(long, value_delimiter = ',')]
+    pub columns: Option<Vec<String>>,
+    /// Drop rows with missing or non-finite values instead of stopping at the first one.
+    #[arg(long)]
+    pub drop_incomplete: bool,
+}
+
+/// EM settings shared by every command that fits.
+#[derive(Debug, Args)]
+pub struct EmArgs {
+    /// Independent starts per fit; the best log-likelihood wins.
+    #[arg(long, default_value_t = 4)]
+    pub restarts: usize,
+    /// Seed of every random stream.
+    #[arg(long, default_value_t = 0)]
+    pub seed: u64,
+    /// Stop when the mean per-row log-likelihood improves by less than this (nats).
+    #[arg(long, default_value_t = 1e-6)]
+    pub tolerance: f64,
+    /// Cap on EM iterations per start.
+    #[arg(long, default_value_t = 1000)]
+    pub max_iterations: usize,
+    /// Add this absolute value to every covariance diagonal [default: a fraction of each
+    /// column's variance, see --ridge-fraction].
+    #[arg(long, conflicts_with = "ridge_fraction")]
+    pub ridge: Option<f64>,
+    /// Add this fraction of each column's variance to the covariance diagonal.
+    #[arg(long, default_value_t = 1e-6)]
+    pub ridge_fraction: f64,
+    /// Start from random responsibilities instead of k-means++ seeding.
+    #[arg(long, conflicts_with = "start")]
+    pub random_start: bool,
+}
+
+#[derive(Debug, Args)]
+pub struct FitArgs {
+    #[command(flatten)]
+    pub input: InputArgs,
+    /// Number of mixture components.
+    #[arg(long, short = 'k')]
+    pub components: usize,
+    /// Covariance form: full or diagonal.
+    #[arg(long, default_value = "full")]
+    pub covariance: CovarianceForm,
+    #[command(flatten)]
+    pub em: EmArgs,
+    /// Warm start: a model document to start EM from (one start is then enough).
+    #[arg(long)]
+    pub start: Option<PathBuf>,
+    /// Where to write the model document [default: standard output].
+    #[arg(long)]
+    pub out: Option<PathBuf>,
+}
+
+#[derive(Debug, Args)]
+pub struct ScoreArgs {
+    #[command(flatten)]
+    pub input: InputArgs,
+    /// The model document to score under.
+    #[arg(long)]
+    pub model: PathBuf,
+    /// Where to write per-row results as CSV (row, loglik, component) [default: standard
+    /// output, with the summary on standard error].
+    #[arg(long)]
+    pub out: Option<PathBuf>,
+    /// Print the summary as JSON.
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use clap::CommandFactory;
+
+    #[test]
+    fn the_grammar_is_consistent() {
+        Cli::command().debug_assert();
+    }
+
+    #[test]
+    fn component_counts_parse_as_ranges_and_lists() {
+        assert_eq!(parse_counts("1..4").unwrap().0, vec![1, 2, 3, 4]);
+        assert_eq!(parse_counts("6,2,4,2").unwrap().0, vec![2, 4, 6]);
+        assert_eq!(parse_counts("3").unwrap().0, vec![3]);
+        assert!(
+            parse_counts("5..2")
+                .unwrap_err()
+                .contains("smaller count first")
+        );
+        assert!(parse_counts("a..b").is_err());
+    }
+}
