@@ -386,6 +386,7 @@ fn run(
     let mut previous = f64::NEG_INFINITY;
     let mut fresh = true;
     let mut iterations = 0;
+    let mut last: Option<(Mixture, f64)> = None;
     loop {
         if stop() {
             return Err(Error::Cancelled);
@@ -400,23 +401,23 @@ fn run(
         }
         let mean = stats.loglik / n;
         trace.push(mean);
-        if !fresh && mean - previous < options.tolerance {
-            return Ok(state.finish(
-                model,
-                stats.loglik,
-                iterations,
-                Termination::Converged,
-                trace,
-            ));
-        }
-        if !accumulate {
-            return Ok(state.finish(
-                model,
-                stats.loglik,
-                iterations,
-                Termination::IterationLimit,
-                trace,
-            ));
+        let converged = !fresh && mean - previous < options.tolerance;
+        if converged || !accumulate {
+            let termination = if converged {
+                Termination::Converged
+            } else {
+                Termination::IterationLimit
+            };
+            // With a ridge an update can lower the likelihood slightly; never return the worse
+            // of the last two models. The trace then ends at the returned model's value.
+            if let Some((before, loglik)) = last.take()
+                && !fresh
+                && mean < previous
+            {
+                trace.pop();
+                return Ok(state.finish(before, loglik, iterations - 1, termination, trace));
+            }
+            return Ok(state.finish(model, stats.loglik, iterations, termination, trace));
         }
         let events = state.events.len();
         let centres = model.means().to_vec();
@@ -430,7 +431,7 @@ fn run(
         )?;
         fresh = state.moved_since(events);
         previous = mean;
-        model = next;
+        last = Some((std::mem::replace(&mut model, next), stats.loglik));
         iterations += 1;
     }
 }
