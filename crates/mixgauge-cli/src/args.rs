@@ -22,6 +22,18 @@ pub enum Command {
     /// Fit every candidate (component count × covariance form) on k folds and on all rows,
     /// and report training vs held-out log-likelihood, BIC, AIC and ICL.
     Sweep(SweepArgs),
+    /// Write the invented refrigerated-trailer demo data (if missing) and sweep it, with a report.
+    Demo(DemoArgs),
+}
+
+#[derive(Debug, Args)]
+pub struct DemoArgs {
+    /// Folder of the demo data.
+    #[arg(long, default_value = "demo-data")]
+    pub data_dir: std::path::PathBuf,
+    /// Folder for the result document and the report.
+    #[arg(long, default_value = "mixgauge-demo")]
+    pub out_dir: std::path::PathBuf,
 }
 
 /// Component counts, ascending without repeats.
@@ -84,6 +96,9 @@ pub struct SweepArgs {
     /// Print the result document on standard output instead of the summary.
     #[arg(long)]
     pub json: bool,
+    /// Where to write the HTML report (self-contained; open it in any browser).
+    #[arg(long)]
+    pub report: Option<std::path::PathBuf>,
 }
 
 /// Which rows and columns of the input file to use.

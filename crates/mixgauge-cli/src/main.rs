@@ -2,6 +2,7 @@
 //! this file maps the outcome to an exit code: 0 ok, 2 usage or input error, 1 anything else.
 
 mod args;
+mod demo;
 mod failure;
 mod fit;
 mod inputs;
@@ -11,6 +12,35 @@ mod sweep;
 use std::process::ExitCode;
 
 use clap::Parser;
+
+/// `mixgauge demo`: the data file, then an ordinary `sweep` of it with the regimes as labels.
+fn run_demo(a: &args::DemoArgs) -> Result<(), failure::Failure> {
+    let data = demo::ensure_data(&a.data_dir)?;
+    std::fs::create_dir_all(&a.out_dir).map_err(|e| failure::io("create", &a.out_dir, e))?;
+    let result = a.out_dir.join("result.json");
+    let report = a.out_dir.join("report.html");
+    let argv = [
+        "mixgauge".as_ref(),
+        "sweep".as_ref(),
+        data.as_os_str(),
+        "--labels".as_ref(),
+        "regime".as_ref(),
+        "--components".as_ref(),
+        "1..10".as_ref(),
+        "--out".as_ref(),
+        result.as_os_str(),
+        "--report".as_ref(),
+        report.as_os_str(),
+    ];
+    let cli =
+        args::Cli::try_parse_from(argv).map_err(|e| failure::Failure::Other(e.to_string()))?;
+    let args::Command::Sweep(sweep_args) = cli.command else {
+        unreachable!("parsed as sweep")
+    };
+    sweep::run(&sweep_args)?;
+    eprintln!("result: {}\nreport: {}", result.display(), report.display());
+    Ok(())
+}
 
 fn main() -> ExitCode {
     let cli = match args::Cli::try_parse() {
@@ -25,6 +55,7 @@ fn main() -> ExitCode {
         args::Command::Fit(a) => fit::run(&a),
         args::Command::Score(a) => score::run(&a),
         args::Command::Sweep(a) => sweep::run(&a),
+        args::Command::Demo(a) => run_demo(&a),
     };
     match outcome {
         Ok(()) => ExitCode::SUCCESS,

@@ -75,6 +75,9 @@ pub fn run(args: &SweepArgs) -> Result<(), Failure> {
     if let Some(b) = bar {
         b.finish_and_clear();
     }
+    if let Some(path) = &args.report {
+        inputs::write_out(Some(path), &html_report(&outcome, &data)?)?;
+    }
     let json = serde_json::to_string_pretty(&outcome.result).expect("a result serialises") + "\n";
     if let Some(path) = &args.out {
         inputs::write_out(Some(path), &json)?;
@@ -84,6 +87,31 @@ pub fn run(args: &SweepArgs) -> Result<(), Failure> {
     } else {
         inputs::write_out(None, &summary(&outcome.result))
     }
+}
+
+/// The HTML report, with the 2-D view of the recommended model (held-out maximum, else the
+/// BIC minimum) when there is one.
+fn html_report(
+    outcome: &mixgauge_select::SweepOutcome,
+    data: &mixgauge_data::Dataset,
+) -> Result<String, Failure> {
+    let rec = &outcome.result.recommendations;
+    let chosen = rec.heldout_max.or(rec.bic_min);
+    let model = chosen
+        .and_then(|c| outcome.models.iter().find(|(m, _)| *m == c))
+        .map(|(_, m)| m);
+    let values = data
+        .values
+        .as_slice()
+        .ok_or_else(|| Failure::Other("dataset values are not contiguous".into()))?;
+    let view = match model {
+        Some(m) => Some(
+            mixgauge_report::ModelView::new(m, values, data.values.ncols(), 5_000)
+                .map_err(|e| Failure::Other(format!("cannot draw the model view: {e}")))?,
+        ),
+        None => None,
+    };
+    Ok(mixgauge_report::render(&outcome.result, view.as_ref()))
 }
 
 /// The candidate table and the summary sentences, for a terminal.

@@ -34,6 +34,7 @@ mod kernel;
 mod linalg;
 mod model;
 mod rows;
+mod sample;
 mod stats;
 
 pub use criteria::{aic, bic, icl};

@@ -93,6 +93,8 @@ pub fn sweep(
         });
     }
     rows.check_finite()?;
+    // Data the engine cannot fit at all is the caller's error, not a column of failed candidates.
+    mixgauge_engine::ColumnMoments::of(rows)?;
     let smallest_data_eigen = smallest_covariance_eigenvalue(rows);
     let folds = Folds::shuffled(n, settings.folds, settings.seed);
     let fold_rows: Vec<Rows> = (0..folds.len())

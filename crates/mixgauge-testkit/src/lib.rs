@@ -37,33 +37,9 @@ impl Sampler {
         r * t.cos()
     }
 
-    /// `n` rows from `model`, row-major.
+    /// `n` rows from `model`, row-major (the engine's own sampler, seeded from this one).
     pub fn rows(&mut self, model: &Mixture, n: usize) -> Vec<f64> {
-        let d = model.dims();
-        let k = model.components();
-        let chol: Vec<Vec<f64>> = (0..k).map(|c| cholesky(&model.covariance(c), d)).collect();
-        let mut out = Vec::with_capacity(n * d);
-        let mut z = vec![0.0; d];
-        for _ in 0..n {
-            let u = self.uniform();
-            let mut c = 0;
-            let mut acc = model.weights()[0];
-            while u > acc && c + 1 < k {
-                c += 1;
-                acc += model.weights()[c];
-            }
-            for v in z.iter_mut() {
-                *v = self.normal();
-            }
-            for i in 0..d {
-                let mut x = model.mean(c)[i];
-                for j in 0..=i {
-                    x += chol[c][i * d + j] * z[j];
-                }
-                out.push(x);
-            }
-        }
-        out
+        model.sample(n, self.rng.next_u64()).0
     }
 }
 

@@ -3,4 +3,5 @@
 
 mod degenerate;
 mod determinism;
+mod optimum;
 mod textbook;
