@@ -343,6 +343,45 @@ fn lane_sum(v: &Lanes) -> f64 {
     s
 }
 
+/// Gathers rows `[start, start + count)` into the scratch tiles and leaves each row's
+/// responsibilities in `s.logp` (component-major) with its log-density as
+/// `row_max + ln row_sum`.
+#[inline(always)]
+fn block_responsibilities(
+    model: &Mixture,
+    rows: &Rows,
+    start: usize,
+    count: usize,
+    s: &mut Scratch,
+) {
+    let k = model.components();
+    let d = model.dims();
+    let ntiles = count.div_ceil(LANES);
+    resize(&mut s.tiles, TILES * d);
+    resize(&mut s.logp, k * BLOCK_ROWS);
+    resize(&mut s.centred, d);
+    resize(&mut s.row_max, BLOCK_ROWS);
+    resize(&mut s.row_sum, BLOCK_ROWS);
+    gather(rows, start, count, &mut s.tiles);
+    for c in 0..k {
+        component_logp(
+            model,
+            c,
+            &s.tiles,
+            ntiles,
+            &mut s.centred,
+            &mut s.logp[c * BLOCK_ROWS..],
+        );
+    }
+    normalise(
+        &mut s.logp,
+        k,
+        ntiles * LANES,
+        &mut s.row_max,
+        &mut s.row_sum,
+    );
+}
+
 /// One block of a fitting pass: the log-likelihood of its rows under `model`, and, when
 /// `accumulate`, the sufficient statistics around `centres` (K×D).
 pub(crate) fn fit_block(
@@ -375,27 +414,11 @@ pub(crate) fn fit_block_body(
     let mut scratch = take_scratch();
     {
         let s = &mut scratch;
-        resize(&mut s.tiles, TILES * d);
-        resize(&mut s.logp, k * BLOCK_ROWS);
-        resize(&mut s.centred, d);
         resize(&mut s.weighted, d);
         resize(&mut s.first, d);
         resize(&mut s.second, p);
-        resize(&mut s.row_max, BLOCK_ROWS);
-        resize(&mut s.row_sum, BLOCK_ROWS);
-        gather(rows, start, count, &mut s.tiles);
+        block_responsibilities(model, rows, start, count, s);
         let padded = ntiles * LANES;
-        for c in 0..k {
-            component_logp(
-                model,
-                c,
-                &s.tiles,
-                ntiles,
-                &mut s.centred,
-                &mut s.logp[c * BLOCK_ROWS..],
-            );
-        }
-        normalise(&mut s.logp, k, padded, &mut s.row_max, &mut s.row_sum);
         // Mask the padding lanes out of every sum.
         for c in 0..k {
             s.logp[c * BLOCK_ROWS + count..c * BLOCK_ROWS + padded].fill(0.0);
@@ -494,36 +517,12 @@ pub(crate) fn score_block_body(
     resp: Option<&mut [f64]>,
 ) -> usize {
     let k = model.components();
-    let d = model.dims();
     let start = block * BLOCK_ROWS;
     let count = (rows.len() - start).min(BLOCK_ROWS);
-    let ntiles = count.div_ceil(LANES);
     let mut scratch = take_scratch();
     let lost = {
         let s = &mut scratch;
-        resize(&mut s.tiles, TILES * d);
-        resize(&mut s.logp, k * BLOCK_ROWS);
-        resize(&mut s.centred, d);
-        resize(&mut s.row_max, BLOCK_ROWS);
-        resize(&mut s.row_sum, BLOCK_ROWS);
-        gather(rows, start, count, &mut s.tiles);
-        for c in 0..k {
-            component_logp(
-                model,
-                c,
-                &s.tiles,
-                ntiles,
-                &mut s.centred,
-                &mut s.logp[c * BLOCK_ROWS..],
-            );
-        }
-        normalise(
-            &mut s.logp,
-            k,
-            ntiles * LANES,
-            &mut s.row_max,
-            &mut s.row_sum,
-        );
+        block_responsibilities(model, rows, start, count, s);
         let mut lost = 0;
         for r in 0..count {
             loglik[r] = if s.row_sum[r] > 0.0 {
