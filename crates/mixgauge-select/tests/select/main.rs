@@ -65,6 +65,7 @@ fn heldout_and_bic_recover_the_true_component_count() {
                 .all(|c| c.status == CandidateStatus::Fitted)
         );
     }
+    eprintln!("true K found: held-out maximum {heldout_hits}/10, BIC minimum {bic_hits}/10");
     assert!(
         heldout_hits >= 9,
         "held-out maximum found the true K in {heldout_hits}/10"
