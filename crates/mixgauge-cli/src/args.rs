@@ -24,6 +24,21 @@ pub enum Command {
     Sweep(SweepArgs),
     /// Write the invented refrigerated-trailer demo data (if missing) and sweep it, with a report.
     Demo(DemoArgs),
+    /// Run the HTTP job service: upload datasets, queue sweeps, fetch results and reports.
+    Serve(ServeArgs),
+}
+
+#[derive(Debug, Args)]
+pub struct ServeArgs {
+    /// Address to listen on.
+    #[arg(long, env = "MIXGAUGE_LISTEN", default_value = "127.0.0.1:8080")]
+    pub listen: std::net::SocketAddr,
+    /// Folder of the job database and the uploaded datasets (created if missing).
+    #[arg(long, env = "MIXGAUGE_DATA_DIR", default_value = "mixgauge-data")]
+    pub data_dir: PathBuf,
+    /// Sweeps run at the same time.
+    #[arg(long, default_value_t = 1)]
+    pub workers: usize,
 }
 
 #[derive(Debug, Args)]

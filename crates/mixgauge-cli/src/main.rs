@@ -56,6 +56,13 @@ fn main() -> ExitCode {
         args::Command::Score(a) => score::run(&a),
         args::Command::Sweep(a) => sweep::run(&a),
         args::Command::Demo(a) => run_demo(&a),
+        args::Command::Serve(a) => mixgauge_service::run(mixgauge_service::ServeConfig {
+            listen: a.listen,
+            data_dir: a.data_dir,
+            workers: a.workers,
+            ..Default::default()
+        })
+        .map_err(|e| failure::Failure::Other(format!("{e:#}"))),
     };
     match outcome {
         Ok(()) => ExitCode::SUCCESS,

@@ -89,29 +89,17 @@ pub fn run(args: &SweepArgs) -> Result<(), Failure> {
     }
 }
 
-/// The HTML report, with the 2-D view of the recommended model (held-out maximum, else the
-/// BIC minimum) when there is one.
+/// The HTML report, with the 2-D view of the recommended model.
 fn html_report(
     outcome: &mixgauge_select::SweepOutcome,
     data: &mixgauge_data::Dataset,
 ) -> Result<String, Failure> {
-    let rec = &outcome.result.recommendations;
-    let chosen = rec.heldout_max.or(rec.bic_min);
-    let model = chosen
-        .and_then(|c| outcome.models.iter().find(|(m, _)| *m == c))
-        .map(|(_, m)| m);
     let values = data
         .values
         .as_slice()
         .ok_or_else(|| Failure::Other("dataset values are not contiguous".into()))?;
-    let view = match model {
-        Some(m) => Some(
-            mixgauge_report::ModelView::new(m, values, data.values.ncols(), 5_000)
-                .map_err(|e| Failure::Other(format!("cannot draw the model view: {e}")))?,
-        ),
-        None => None,
-    };
-    Ok(mixgauge_report::render(&outcome.result, view.as_ref()))
+    mixgauge_report::render_outcome(outcome, values, data.values.ncols())
+        .map_err(|e| Failure::Other(format!("cannot draw the model view: {e}")))
 }
 
 /// The candidate table and the summary sentences, for a terminal.

@@ -19,6 +19,7 @@ mod criteria_chart;
 mod error;
 mod format;
 mod likelihood_chart;
+mod outcome;
 mod page;
 mod palette;
 mod svg;
@@ -27,5 +28,6 @@ mod view;
 mod view_chart;
 
 pub use error::ReportError;
+pub use outcome::render_outcome;
 pub use page::render;
 pub use view::{ModelView, ProjectedComponent};

@@ -1,0 +1,567 @@
+//! The HTTP surface: [`router`] and one handler per endpoint under `/v1`, plus `/healthz` and
+//! `/readyz`. Handlers extract, call the store, and map records to JSON; every failure is an
+//! [`AppError`]. Extractor rejections are taken as `Result` and mapped to `AppError`, so even a
+//! malformed query string gets the JSON error shape.
+
+use axum::Router;
+use axum::body::Bytes;
+use axum::extract::rejection::{BytesRejection, QueryRejection};
+use axum::extract::{DefaultBodyLimit, Path, Query, State};
+use axum::http::{HeaderMap, StatusCode, header};
+use axum::response::{Html, IntoResponse, Response};
+use axum::routing::{get, post};
+use axum::{Json, extract::Request};
+use serde::Deserialize;
+use serde_json::{Value, json};
+use sha2::{Digest, Sha256};
+
+use mixgauge_data::{Format, ReadOptions};
+use mixgauge_select::SweepSettings;
+
+use crate::error::AppError;
+use crate::state::AppState;
+use crate::store::{
+    CreateOutcome, DatasetRecord, DeleteOutcome, JobState, NewSweep, PutOutcome, SweepJob,
+};
+
+/// Largest page a list endpoint returns; also the default.
+const MAX_PAGE: usize = 100;
+
+/// Largest accepted `POST /v1/sweeps` body: settings are small.
+const SWEEP_BODY_LIMIT: usize = 64 * 1024;
+
+/// Builds the service's router over `state`. No socket is opened: serve it with `axum::serve`,
+/// or call it directly with `tower::ServiceExt::oneshot` in tests.
+pub fn router(state: AppState) -> Router {
+    let upload_limit = state.max_upload_bytes;
+    Router::new()
+        .route("/healthz", get(healthz))
+        .route("/readyz", get(readyz))
+        .route(
+            "/v1/datasets",
+            post(upload_dataset)
+                .get(list_datasets)
+                .layer(DefaultBodyLimit::max(upload_limit)),
+        )
+        .route("/v1/datasets/{id}", get(get_dataset).delete(delete_dataset))
+        .route(
+            "/v1/sweeps",
+            post(create_sweep)
+                .get(list_sweeps)
+                .layer(DefaultBodyLimit::max(SWEEP_BODY_LIMIT)),
+        )
+        .route("/v1/sweeps/{id}", get(get_sweep))
+        .route("/v1/sweeps/{id}/cancel", post(cancel_sweep))
+        .route("/v1/sweeps/{id}/report", get(sweep_report))
+        .fallback(no_route)
+        .method_not_allowed_fallback(wrong_method)
+        .layer(tower_http::trace::TraceLayer::new_for_http())
+        .with_state(state)
+}
+
+async fn no_route(req: Request) -> AppError {
+    AppError::client(
+        StatusCode::NOT_FOUND,
+        "no_such_route",
+        format!(
+            "{} {} is not an endpoint of this service; the endpoints are under /v1/datasets and /v1/sweeps",
+            req.method(),
+            req.uri().path()
+        ),
+    )
+}
+
+async fn wrong_method(req: Request) -> AppError {
+    AppError::client(
+        StatusCode::METHOD_NOT_ALLOWED,
+        "method_not_allowed",
+        format!(
+            "{} is not allowed on {}; see the endpoint list for the methods it takes",
+            req.method(),
+            req.uri().path()
+        ),
+    )
+}
+
+async fn healthz() -> Json<Value> {
+    Json(json!({ "status": "ok" }))
+}
+
+async fn readyz(State(state): State<AppState>) -> Response {
+    match state.store.ping().await {
+        Ok(()) => Json(json!({ "status": "ready" })).into_response(),
+        Err(e) => {
+            tracing::error!(error = %e, "store not reachable");
+            (
+                StatusCode::SERVICE_UNAVAILABLE,
+                Json(json!({ "error": {
+                    "code": "store_unavailable",
+                    "message": "the store is not reachable",
+                    "detail": null,
+                } })),
+            )
+                .into_response()
+        }
+    }
+}
+
+/// Paging parameters of the list endpoints.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct Page {
+    limit: Option<usize>,
+    after: Option<String>,
+}
+
+fn page(query: Result<Query<Page>, QueryRejection>) -> Result<(usize, Option<String>), AppError> {
+    let Query(p) = query.map_err(|e| {
+        AppError::client(
+            StatusCode::BAD_REQUEST,
+            "bad_query",
+            format!(
+                "{}; the list endpoints take ?limit=1..{MAX_PAGE}&after=<id>",
+                e.body_text()
+            ),
+        )
+    })?;
+    let limit = p.limit.unwrap_or(MAX_PAGE);
+    if limit == 0 || limit > MAX_PAGE {
+        return Err(AppError::client(
+            StatusCode::BAD_REQUEST,
+            "bad_query",
+            format!("limit = {limit} is not valid; give a limit between 1 and {MAX_PAGE}"),
+        )
+        .with_detail(json!({ "field": "limit", "max": MAX_PAGE })));
+    }
+    Ok((limit, p.after))
+}
+
+fn body(bytes: Result<Bytes, BytesRejection>, limit: usize) -> Result<Bytes, AppError> {
+    bytes.map_err(|e| {
+        if e.status() == StatusCode::PAYLOAD_TOO_LARGE {
+            AppError::client(
+                StatusCode::PAYLOAD_TOO_LARGE,
+                "body_too_large",
+                format!("the request body is larger than the limit of {limit} bytes; send a smaller file or raise the server's upload limit"),
+            )
+            .with_detail(json!({ "limit_bytes": limit }))
+        } else {
+            AppError::client(StatusCode::BAD_REQUEST, "bad_body", e.body_text())
+        }
+    })
+}
+
+/// The upload format named by `Content-Type` (parameters such as `charset` are ignored).
+fn upload_format(headers: &HeaderMap, bytes: &[u8]) -> Result<Format, AppError> {
+    let given = headers
+        .get(header::CONTENT_TYPE)
+        .and_then(|v| v.to_str().ok())
+        .unwrap_or("");
+    let media = given
+        .split(';')
+        .next()
+        .unwrap_or("")
+        .trim()
+        .to_ascii_lowercase();
+    match media.as_str() {
+        "text/csv" => Ok(Format::Csv),
+        "application/json" => Ok(Format::Json),
+        "application/x-npy" => Ok(Format::Npy),
+        "application/octet-stream" if bytes.starts_with(b"\x93NUMPY") => Ok(Format::Npy),
+        _ => Err(AppError::client(
+            StatusCode::UNSUPPORTED_MEDIA_TYPE,
+            "unsupported_media_type",
+            format!(
+                "Content-Type {given:?} is not a dataset format; send text/csv, application/json, application/x-npy, or application/octet-stream holding an NPY file"
+            ),
+        )
+        .with_detail(json!({ "content_type": given }))),
+    }
+}
+
+fn format_name(f: Format) -> String {
+    f.name().to_ascii_lowercase()
+}
+
+/// A dataset's id: its whole content hash, so two different files can never share an id.
+fn dataset_id(sha256: &str) -> String {
+    format!("ds-{sha256}")
+}
+
+fn dataset_json(d: &DatasetRecord) -> Value {
+    json!({
+        "id": d.id,
+        "rows": d.rows,
+        "columns": d.columns,
+        "column_names": d.column_names,
+        "sha256": d.sha256,
+        "format": d.format,
+        "created": d.created,
+        "url": format!("/v1/datasets/{}", d.id),
+    })
+}
+
+async fn upload_dataset(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    bytes: Result<Bytes, BytesRejection>,
+) -> Result<Response, AppError> {
+    let bytes = body(bytes, state.max_upload_bytes)?;
+    let format = upload_format(&headers, &bytes)?;
+    // No copy when the body is uniquely owned, which it is here.
+    let raw = Vec::from(bytes);
+    // Parsing a large file is CPU work: off the async threads.
+    let (raw, parsed) = tokio::task::spawn_blocking(move || {
+        let parsed = mixgauge_data::read_bytes(&raw, &ReadOptions::default().format(format));
+        (raw, parsed)
+    })
+    .await
+    .map_err(|e| crate::error::StoreError::Task(e.to_string()))?;
+    let data = parsed.map_err(|e| {
+        AppError::client(
+            StatusCode::UNPROCESSABLE_ENTITY,
+            "invalid_dataset",
+            e.to_string(),
+        )
+        .with_detail(json!({ "format": format_name(format) }))
+    })?;
+    let meta = DatasetRecord {
+        id: dataset_id(&data.sha256),
+        rows: data.values.nrows(),
+        columns: data.values.ncols(),
+        column_names: data.column_names.clone(),
+        sha256: data.sha256.clone(),
+        format: format_name(format),
+        created: now_ms(),
+    };
+    Ok(match state.store.put_dataset(meta, raw).await? {
+        PutOutcome::Created(d) => (StatusCode::CREATED, Json(dataset_json(&d))).into_response(),
+        PutOutcome::Existing(d) => (StatusCode::OK, Json(dataset_json(&d))).into_response(),
+    })
+}
+
+fn now_ms() -> i64 {
+    std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map_or(0, |d| d.as_millis() as i64)
+}
+
+async fn get_dataset(
+    State(state): State<AppState>,
+    Path(id): Path<String>,
+) -> Result<Json<Value>, AppError> {
+    let d = state
+        .store
+        .get_dataset(&id)
+        .await?
+        .ok_or_else(|| AppError::not_found("dataset", "dataset_not_found", &id))?;
+    Ok(Json(dataset_json(&d)))
+}
+
+async fn list_datasets(
+    State(state): State<AppState>,
+    query: Result<Query<Page>, QueryRejection>,
+) -> Result<Json<Value>, AppError> {
+    let (limit, after) = page(query)?;
+    let items = state.store.list_datasets(limit, after).await?;
+    let next = (items.len() == limit).then(|| items.last().map(|d| d.id.clone()));
+    Ok(Json(json!({
+        "items": items.iter().map(dataset_json).collect::<Vec<_>>(),
+        "next": next.flatten(),
+    })))
+}
+
+async fn delete_dataset(
+    State(state): State<AppState>,
+    Path(id): Path<String>,
+) -> Result<StatusCode, AppError> {
+    match state.store.delete_dataset(&id).await? {
+        DeleteOutcome::Deleted => Ok(StatusCode::NO_CONTENT),
+        DeleteOutcome::NotFound => Err(AppError::not_found("dataset", "dataset_not_found", &id)),
+        DeleteOutcome::InUse(jobs) => Err(AppError::client(
+            StatusCode::CONFLICT,
+            "dataset_in_use",
+            format!(
+                "dataset {id} is used by {} queued or running sweep(s); cancel them or wait until they finish, then delete again",
+                jobs.len()
+            ),
+        )
+        .with_detail(json!({ "sweeps": jobs.iter().map(|j| sweep_id(*j)).collect::<Vec<_>>() }))),
+    }
+}
+
+/// The body of `POST /v1/sweeps`.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct SweepRequest {
+    dataset: String,
+    #[serde(default)]
+    settings: serde_json::Map<String, Value>,
+}
+
+fn sweep_id(id: i64) -> String {
+    format!("sw-{id}")
+}
+
+/// The numeric id in `sw-<n>`; anything else names no sweep.
+fn parse_sweep_id(text: &str) -> Result<i64, AppError> {
+    text.strip_prefix("sw-")
+        .and_then(|n| n.parse::<i64>().ok())
+        .filter(|n| *n > 0)
+        .ok_or_else(|| AppError::not_found("sweep", "sweep_not_found", text))
+}
+
+fn unprocessable(code: &'static str, message: String) -> AppError {
+    AppError::client(StatusCode::UNPROCESSABLE_ENTITY, code, message)
+}
+
+/// The request's settings laid over the defaults, checked against the dataset's row count.
+fn resolve_settings(
+    given: &serde_json::Map<String, Value>,
+    rows: usize,
+) -> Result<SweepSettings, AppError> {
+    let Value::Object(mut merged) =
+        serde_json::to_value(SweepSettings::default()).expect("settings serialise")
+    else {
+        unreachable!("settings serialise as an object")
+    };
+    for (k, v) in given {
+        if !merged.contains_key(k) {
+            let known: Vec<&String> = merged.keys().collect();
+            return Err(unprocessable(
+                "invalid_settings",
+                format!("settings.{k} is not a setting; the settings are {known:?}"),
+            )
+            .with_detail(json!({ "field": format!("settings.{k}") })));
+        }
+        merged.insert(k.clone(), v.clone());
+    }
+    let settings: SweepSettings = serde_json::from_value(Value::Object(merged)).map_err(|e| {
+        unprocessable(
+            "invalid_settings",
+            format!(
+                "settings are not valid: {e}; see the defaults in GET /v1/sweeps/<id> of any job"
+            ),
+        )
+    })?;
+    settings.validate(rows).map_err(|e| {
+        unprocessable(
+            "invalid_settings",
+            format!("{e} (the dataset has {rows} rows)"),
+        )
+    })?;
+    Ok(settings)
+}
+
+async fn create_sweep(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    bytes: Result<Bytes, BytesRejection>,
+) -> Result<Response, AppError> {
+    let bytes = body(bytes, SWEEP_BODY_LIMIT)?;
+    let req: SweepRequest = serde_json::from_slice(&bytes).map_err(|e| {
+        AppError::client(
+            StatusCode::BAD_REQUEST,
+            "bad_json",
+            format!(
+                "the body is not a sweep request: {e}; send {{\"dataset\": \"<id>\", \"settings\": {{...}}}}"
+            ),
+        )
+    })?;
+    let key = match headers.get("idempotency-key") {
+        None => None,
+        Some(v) => Some(
+            v.to_str()
+                .ok()
+                .filter(|k| !k.is_empty() && k.len() <= 255)
+                .ok_or_else(|| {
+                    AppError::client(
+                        StatusCode::BAD_REQUEST,
+                        "bad_idempotency_key",
+                        "the Idempotency-Key header must be 1 to 255 visible ASCII characters",
+                    )
+                })?
+                .to_string(),
+        ),
+    };
+    let dataset = state.store.get_dataset(&req.dataset).await?.ok_or_else(|| {
+        unprocessable(
+            "dataset_not_found",
+            format!(
+                "no dataset has the id {:?}; upload it with POST /v1/datasets and use the id it returns",
+                req.dataset
+            ),
+        )
+        .with_detail(json!({ "field": "dataset" }))
+    })?;
+    let settings = resolve_settings(&req.settings, dataset.rows)?;
+    let settings_json = serde_json::to_string(&settings).expect("settings serialise");
+    // The hash covers the resolved request, so key order and spelled-out defaults do not matter.
+    let request_hash = hex(&Sha256::digest(
+        format!("{}\n{settings_json}", dataset.id).as_bytes(),
+    ));
+    let outcome = state
+        .store
+        .create_sweep(NewSweep {
+            dataset: dataset.id,
+            settings: settings_json,
+            idempotency_key: key,
+            request_hash,
+        })
+        .await?;
+    let (status, job) = match outcome {
+        CreateOutcome::Created(job) => {
+            state.wake.notify_waiters();
+            (StatusCode::ACCEPTED, job)
+        }
+        CreateOutcome::Existing(job) => (StatusCode::OK, job),
+        CreateOutcome::KeyConflict => {
+            return Err(AppError::client(
+                StatusCode::CONFLICT,
+                "idempotency_key_reused",
+                "this Idempotency-Key was already used with a different request; use a new key for a new sweep",
+            ));
+        }
+    };
+    let id = sweep_id(job.id);
+    Ok((
+        status,
+        [(header::LOCATION, format!("/v1/sweeps/{id}"))],
+        Json(json!({ "id": id, "url": format!("/v1/sweeps/{id}") })),
+    )
+        .into_response())
+}
+
+fn hex(bytes: &[u8]) -> String {
+    bytes.iter().map(|b| format!("{b:02x}")).collect()
+}
+
+fn sweep_json(job: &SweepJob, full: bool) -> Result<Value, AppError> {
+    let parse = |text: &str, what: &str| {
+        serde_json::from_str::<Value>(text).map_err(|e| {
+            AppError::Internal(crate::error::StoreError::Corrupt(format!(
+                "{what} of sweep {}: {e}",
+                job.id
+            )))
+        })
+    };
+    let mut v = json!({
+        "id": sweep_id(job.id),
+        "url": format!("/v1/sweeps/{}", sweep_id(job.id)),
+        "dataset": job.dataset,
+        "state": job.state,
+        "progress": { "done": job.done, "total": job.total },
+        "cancel_requested": job.cancel_requested,
+        "settings": parse(&job.settings, "settings")?,
+        "created": job.created,
+        "updated": job.updated,
+    });
+    if full {
+        if let Some(r) = &job.result {
+            v["result"] = parse(r, "result")?;
+        }
+        if let Some(e) = &job.error {
+            v["error"] = json!(e);
+        }
+    }
+    Ok(v)
+}
+
+async fn find_sweep(state: &AppState, text: &str) -> Result<SweepJob, AppError> {
+    let id = parse_sweep_id(text)?;
+    state
+        .store
+        .get_sweep(id)
+        .await?
+        .ok_or_else(|| AppError::not_found("sweep", "sweep_not_found", text))
+}
+
+async fn get_sweep(
+    State(state): State<AppState>,
+    Path(id): Path<String>,
+) -> Result<Json<Value>, AppError> {
+    let job = find_sweep(&state, &id).await?;
+    Ok(Json(sweep_json(&job, true)?))
+}
+
+async fn list_sweeps(
+    State(state): State<AppState>,
+    query: Result<Query<Page>, QueryRejection>,
+) -> Result<Json<Value>, AppError> {
+    let (limit, after) = page(query)?;
+    let after = match after {
+        None => None,
+        Some(a) => Some(parse_sweep_id(&a).map_err(|_| {
+            AppError::client(
+                StatusCode::BAD_REQUEST,
+                "bad_query",
+                format!(
+                    "after = {a:?} is not a sweep id; pass the \"next\" value of the previous page"
+                ),
+            )
+        })?),
+    };
+    let jobs = state.store.list_sweeps(limit, after).await?;
+    let next = (jobs.len() == limit)
+        .then(|| jobs.last().map(|j| sweep_id(j.id)))
+        .flatten();
+    let items = jobs
+        .iter()
+        .map(|j| sweep_json(j, false))
+        .collect::<Result<Vec<_>, _>>()?;
+    Ok(Json(json!({ "items": items, "next": next })))
+}
+
+async fn cancel_sweep(
+    State(state): State<AppState>,
+    Path(id): Path<String>,
+) -> Result<Response, AppError> {
+    let job = find_sweep(&state, &id).await?;
+    match state.store.request_cancel(job.id).await? {
+        Some(JobState::Cancelled) => {}
+        Some(JobState::Running) => {
+            // Recorded in the store first, then signalled: a worker that claimed the job but
+            // has not yet registered its flag reads the request from the store instead.
+            state.signal_cancel(job.id);
+        }
+        Some(s) => {
+            return Err(AppError::client(
+                StatusCode::CONFLICT,
+                "sweep_finished",
+                format!(
+                    "sweep {id} has already {}; there is nothing to cancel",
+                    s.as_str()
+                ),
+            )
+            .with_detail(json!({ "state": s })));
+        }
+        None => return Err(AppError::not_found("sweep", "sweep_not_found", &id)),
+    }
+    let job = find_sweep(&state, &id).await?;
+    Ok((StatusCode::ACCEPTED, Json(sweep_json(&job, false)?)).into_response())
+}
+
+async fn sweep_report(
+    State(state): State<AppState>,
+    Path(id): Path<String>,
+) -> Result<Response, AppError> {
+    let job = find_sweep(&state, &id).await?;
+    if job.state != JobState::Succeeded {
+        return Err(AppError::client(
+            StatusCode::CONFLICT,
+            "sweep_not_succeeded",
+            format!(
+                "sweep {id} is {}; the report exists once it has succeeded — poll GET /v1/sweeps/{id}",
+                job.state.as_str()
+            ),
+        )
+        .with_detail(json!({ "state": job.state })));
+    }
+    let html = state.store.report(job.id).await?.ok_or_else(|| {
+        AppError::Internal(crate::error::StoreError::Corrupt(format!(
+            "succeeded sweep {} has no report",
+            job.id
+        )))
+    })?;
+    Ok(Html(html).into_response())
+}

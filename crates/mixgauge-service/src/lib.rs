@@ -1,0 +1,31 @@
+//! The mixgauge HTTP job service: upload a dataset, queue a model-selection sweep over it, poll
+//! the job, fetch the result document and the HTML report.
+//!
+//! - [`router`] builds the whole HTTP surface from an [`AppState`], with no socket, so tests drive
+//!   it with `tower::ServiceExt::oneshot`.
+//! - [`Store`] is the persistence boundary (datasets and sweep jobs); [`SqliteStore`] is the
+//!   embedded implementation (bundled SQLite plus content-addressed dataset files).
+//! - [`WorkerPool`] takes queued jobs from the store and runs each sweep on `spawn_blocking`, so
+//!   CPU-bound fitting never occupies an async worker thread.
+//! - [`serve`] / [`run`] wire these together behind a TCP listener with graceful shutdown.
+//!
+//! Key design decision: the store is the queue. Every job state change goes through the store,
+//! so a restarted process finds jobs left `running` and puts them back in the queue.
+#![deny(missing_docs)]
+
+mod error;
+mod http;
+mod server;
+mod state;
+mod store;
+mod worker;
+
+pub use error::{AppError, StoreError};
+pub use http::router;
+pub use server::{ServeConfig, run, serve};
+pub use state::AppState;
+pub use store::{
+    CreateOutcome, DatasetRecord, DeleteOutcome, Finish, JobState, NewSweep, PutOutcome,
+    SqliteStore, Store, SweepJob,
+};
+pub use worker::WorkerPool;

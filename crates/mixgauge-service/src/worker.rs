@@ -1,0 +1,296 @@
+//! [`WorkerPool`]: a fixed number of in-process workers that take queued sweep jobs from the
+//! store and run them.
+//!
+//! Each sweep runs on `spawn_blocking` (the sweep itself fans out on the rayon pool), never on
+//! an async worker thread. Progress goes from the sweep's callback into a `watch` channel, and a
+//! small task writes the latest value to the store at most every [`PROGRESS_INTERVAL`], so a
+//! sweep with thousands of fits does not turn into thousands of writes. Cancellation is an
+//! `AtomicBool` per running job, kept in [`AppState`] and set by the cancel endpoint.
+
+use std::sync::Arc;
+use std::sync::atomic::AtomicBool;
+use std::time::Duration;
+
+use mixgauge_data::{Format, ReadOptions};
+use mixgauge_engine::Rows;
+use mixgauge_select::{Progress, SelectError, SweepInput, SweepSettings, sweep};
+use tokio::sync::watch;
+use tokio::task::JoinHandle;
+
+use crate::error::StoreError;
+use crate::state::AppState;
+use crate::store::{Finish, SweepJob};
+
+/// Shortest time between two progress writes of one job.
+pub(crate) const PROGRESS_INTERVAL: Duration = Duration::from_millis(250);
+
+/// How long an idle worker waits before looking at the queue again without a wake-up (covers
+/// jobs queued by another process sharing the data directory).
+const IDLE_POLL: Duration = Duration::from_secs(1);
+
+/// Running workers. Dropping the pool does not stop them; call [`WorkerPool::stop`].
+pub struct WorkerPool {
+    shutdown: watch::Sender<bool>,
+    handles: Vec<JoinHandle<()>>,
+}
+
+impl WorkerPool {
+    /// Re-queues the jobs a previous process left `running`, then starts `workers` workers
+    /// (at least one) on the current tokio runtime.
+    ///
+    /// # Errors
+    /// The store error if the re-queue fails.
+    pub async fn start(state: &AppState, workers: usize) -> Result<Self, StoreError> {
+        let requeued = state.store.requeue_running().await?;
+        if requeued > 0 {
+            tracing::warn!(
+                requeued,
+                "re-queued sweeps left running by an earlier process"
+            );
+        }
+        let (shutdown, rx) = watch::channel(false);
+        let handles = (0..workers.max(1))
+            .map(|_| tokio::spawn(worker_loop(state.clone(), rx.clone())))
+            .collect();
+        Ok(WorkerPool { shutdown, handles })
+    }
+
+    /// Tells the workers to take no new jobs and waits for idle ones to exit. A worker in the
+    /// middle of a sweep is not waited for: its job stays `running` in the store and is
+    /// re-queued at the next start.
+    pub async fn stop(self) {
+        let _ = self.shutdown.send(true);
+        for h in self.handles {
+            if h.is_finished() {
+                let _ = h.await;
+            } else {
+                h.abort();
+            }
+        }
+    }
+}
+
+async fn worker_loop(state: AppState, mut shutdown: watch::Receiver<bool>) {
+    loop {
+        if *shutdown.borrow() {
+            return;
+        }
+        // Registered before looking at the queue, so a job created in between still wakes us.
+        let woken = state.wake.notified();
+        match state.store.claim_next().await {
+            Ok(Some(job)) => run_job(&state, job).await,
+            Ok(None) => {
+                tokio::select! {
+                    _ = woken => {}
+                    _ = shutdown.changed() => {}
+                    _ = tokio::time::sleep(IDLE_POLL) => {}
+                }
+            }
+            Err(e) => {
+                tracing::error!(error = %e, "cannot claim a sweep");
+                tokio::time::sleep(IDLE_POLL).await;
+            }
+        }
+    }
+}
+
+async fn run_job(state: &AppState, job: SweepJob) {
+    let id = job.id;
+    tracing::info!(sweep = id, dataset = %job.dataset, "sweep started");
+    let flag = Arc::new(AtomicBool::new(false));
+    state
+        .cancels
+        .lock()
+        .expect("cancel map lock poisoned")
+        .insert(id, Arc::clone(&flag));
+    // A cancel that arrived between the claim and the line above is only in the store.
+    match state.store.get_sweep(id).await {
+        Ok(Some(j)) if j.cancel_requested => flag.store(true, std::sync::atomic::Ordering::SeqCst),
+        Ok(_) => {}
+        Err(e) => tracing::warn!(sweep = id, error = %e, "cannot read the cancel request"),
+    }
+    let how = match execute(state, &job, flag).await {
+        Ok(how) => how,
+        Err(e) => {
+            tracing::error!(sweep = id, error = %e, "sweep could not run");
+            Finish::Failed("the service failed to run this sweep; see the server log".into())
+        }
+    };
+    state
+        .cancels
+        .lock()
+        .expect("cancel map lock poisoned")
+        .remove(&id);
+    let label = match &how {
+        Finish::Succeeded { .. } => "succeeded",
+        Finish::Failed(_) => "failed",
+        Finish::Cancelled => "cancelled",
+    };
+    match state.store.finish(id, how).await {
+        Ok(_) => tracing::info!(sweep = id, state = label, "sweep finished"),
+        Err(e) => tracing::error!(sweep = id, error = %e, "cannot record the end of a sweep"),
+    }
+}
+
+async fn execute(
+    state: &AppState,
+    job: &SweepJob,
+    cancel: Arc<AtomicBool>,
+) -> Result<Finish, StoreError> {
+    let (Some(meta), Some(bytes)) = (
+        state.store.get_dataset(&job.dataset).await?,
+        state.store.dataset_bytes(&job.dataset).await?,
+    ) else {
+        return Ok(Finish::Failed(format!(
+            "dataset {} no longer exists; upload it again and create a new sweep",
+            job.dataset
+        )));
+    };
+    let format = match meta.format.as_str() {
+        "csv" => Format::Csv,
+        "npy" => Format::Npy,
+        "json" => Format::Json,
+        other => return Err(StoreError::Corrupt(format!("dataset format {other:?}"))),
+    };
+    let settings: SweepSettings = serde_json::from_str(&job.settings)
+        .map_err(|e| StoreError::Corrupt(format!("settings of sweep {}: {e}", job.id)))?;
+
+    let (progress_tx, mut progress_rx) = watch::channel((0u64, 0u64));
+    let store = Arc::clone(&state.store);
+    let id = job.id;
+    let writer = tokio::spawn(async move {
+        while progress_rx.changed().await.is_ok() {
+            let (done, total) = *progress_rx.borrow_and_update();
+            if let Err(e) = store.update_progress(id, done, total).await {
+                tracing::warn!(sweep = id, error = %e, "cannot record progress");
+            }
+            tokio::time::sleep(PROGRESS_INTERVAL).await;
+        }
+    });
+    let how = tokio::task::spawn_blocking(move || {
+        run_sweep(&bytes, format, &settings, &progress_tx, &cancel)
+    })
+    .await
+    .map_err(|e| StoreError::Task(format!("sweep task: {e}")))?;
+    let _ = writer.await;
+    Ok(how)
+}
+
+/// The blocking part: parse, sweep, render.
+fn run_sweep(
+    bytes: &[u8],
+    format: Format,
+    settings: &SweepSettings,
+    progress: &watch::Sender<(u64, u64)>,
+    cancel: &AtomicBool,
+) -> Finish {
+    let data = match mixgauge_data::read_bytes(bytes, &ReadOptions::default().format(format)) {
+        Ok(d) => d,
+        Err(e) => return Finish::Failed(e.to_string()),
+    };
+    let Some(values) = data.values.as_slice() else {
+        return Finish::Failed("dataset values are not contiguous".into());
+    };
+    let rows = match Rows::new(values, data.values.ncols()) {
+        Ok(r) => r,
+        Err(e) => return Finish::Failed(e.to_string()),
+    };
+    let input = SweepInput {
+        rows,
+        column_names: data.column_names.clone(),
+        sha256: data.sha256.clone(),
+        dropped_rows: data.dropped_rows,
+        labels: None,
+        log_jacobian: 0.0,
+        standardised: false,
+    };
+    let report = |p: &Progress| {
+        progress.send_replace((p.done as u64, p.total as u64));
+    };
+    match sweep(&input, settings, &report, cancel) {
+        Ok(outcome) => {
+            let report =
+                match mixgauge_report::render_outcome(&outcome, values, data.values.ncols()) {
+                    Ok(r) => r,
+                    Err(e) => return Finish::Failed(format!("the report could not be drawn: {e}")),
+                };
+            match serde_json::to_string(&outcome.result) {
+                Ok(result) => Finish::Succeeded { report, result },
+                Err(e) => Finish::Failed(format!("the result could not be written: {e}")),
+            }
+        }
+        Err(SelectError::Cancelled) => Finish::Cancelled,
+        Err(e) => Finish::Failed(e.to_string()),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::store::{CreateOutcome, DatasetRecord, JobState, NewSweep, SqliteStore};
+
+    /// A fresh store holding an 8-row dataset and one sweep over it, claimed as a worker would.
+    async fn claimed_job(settings: SweepSettings) -> (tempfile::TempDir, AppState, SweepJob) {
+        let dir = tempfile::tempdir().unwrap();
+        let state = AppState::new(Arc::new(SqliteStore::open(dir.path()).unwrap()));
+        let csv = b"a,b\n0,0\n1,1\n2,0\n3,1\n10,10\n11,11\n12,10\n13,11\n".to_vec();
+        let meta = DatasetRecord {
+            id: "ds-t".into(),
+            rows: 8,
+            columns: 2,
+            column_names: vec!["a".into(), "b".into()],
+            sha256: "t".repeat(64),
+            format: "csv".into(),
+            created: 0,
+        };
+        state.store.put_dataset(meta, csv).await.unwrap();
+        let new = NewSweep {
+            dataset: "ds-t".into(),
+            settings: serde_json::to_string(&settings).unwrap(),
+            idempotency_key: None,
+            request_hash: "h".into(),
+        };
+        let CreateOutcome::Created(_) = state.store.create_sweep(new).await.unwrap() else {
+            panic!("created")
+        };
+        let job = state.store.claim_next().await.unwrap().unwrap();
+        (dir, state, job)
+    }
+
+    fn small() -> SweepSettings {
+        SweepSettings {
+            components: vec![1, 2],
+            folds: 2,
+            restarts: 1,
+            ..Default::default()
+        }
+    }
+
+    /// A job whose cancel request is already in the store when its worker starts stops without
+    /// a result and ends `cancelled`.
+    #[tokio::test]
+    async fn a_cancel_recorded_before_the_worker_starts_stops_the_sweep() {
+        let (_dir, state, job) = claimed_job(small()).await;
+        assert_eq!(
+            state.store.request_cancel(job.id).await.unwrap(),
+            Some(JobState::Running)
+        );
+        let id = job.id;
+        run_job(&state, job).await;
+        let done = state.store.get_sweep(id).await.unwrap().unwrap();
+        assert_eq!(done.state, JobState::Cancelled);
+        assert!(done.result.is_none());
+        assert!(state.cancels.lock().unwrap().is_empty());
+    }
+
+    /// The same job without a cancel request succeeds, so the test above is not vacuous.
+    #[tokio::test]
+    async fn an_uncancelled_job_succeeds_through_run_job() {
+        let (_dir, state, job) = claimed_job(small()).await;
+        let id = job.id;
+        run_job(&state, job).await;
+        let done = state.store.get_sweep(id).await.unwrap().unwrap();
+        assert_eq!(done.state, JobState::Succeeded, "{:?}", done.error);
+        assert!(state.store.report(id).await.unwrap().is_some());
+    }
+}
