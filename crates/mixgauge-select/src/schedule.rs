@@ -15,6 +15,9 @@ pub struct Progress {
     pub total: usize,
     /// The lowest BIC among the full-data fits finished so far, and its candidate.
     pub best_so_far: Option<(Choice, f64)>,
+    /// Candidates whose every fit (all folds and restarts, and the full-data fit) has
+    /// finished, in the order they finished.
+    pub finished: Vec<Choice>,
 }
 
 /// Runs `run(i)` for every `i` in `order` (most expensive first), calling `done(i, &result)` as

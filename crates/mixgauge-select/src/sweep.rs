@@ -156,7 +156,12 @@ pub fn sweep(
     order.sort_by(|&a, &b| tasks[b].cost.total_cmp(&tasks[a].cost).then(a.cmp(&b)));
 
     let stop = || cancel.load(Ordering::Relaxed);
-    let finished = Mutex::new((0usize, None::<(Choice, f64)>));
+    // Fits left per candidate, to report candidates as they complete.
+    let mut left = vec![0usize; candidates.len()];
+    for t in &tasks {
+        left[t.candidate] += 1;
+    }
+    let finished = Mutex::new((0usize, None::<(Choice, f64)>, left, Vec::<Choice>::new()));
     let total = tasks.len();
     let results = run_all(
         &order,
@@ -175,6 +180,14 @@ pub fn sweep(
             let task = tasks[t];
             let mut state = finished.lock().expect("progress lock");
             state.0 += 1;
+            state.2[task.candidate] -= 1;
+            if state.2[task.candidate] == 0 {
+                let (form, k, _, _) = &candidates[task.candidate];
+                state.3.push(Choice {
+                    covariance: *form,
+                    components: *k,
+                });
+            }
             if let (Part::All, Ok(fit)) = (task.part, result) {
                 let (form, k, p, _) = &candidates[task.candidate];
                 let b = bic(fit.loglik + n as f64 * input.log_jacobian, *p, n);
@@ -192,6 +205,7 @@ pub fn sweep(
                 done: state.0,
                 total,
                 best_so_far: state.1,
+                finished: state.3.clone(),
             });
         },
         cancel,
