@@ -4,8 +4,7 @@
 //! malformed query string gets the JSON error shape.
 
 use axum::Router;
-use axum::body::Bytes;
-use axum::extract::rejection::{BytesRejection, QueryRejection};
+use axum::extract::rejection::QueryRejection;
 use axum::extract::{DefaultBodyLimit, Path, Query, State};
 use axum::http::{HeaderMap, StatusCode, header};
 use axum::response::{Html, IntoResponse, Response};
@@ -15,11 +14,13 @@ use serde::Deserialize;
 use serde_json::{Value, json};
 use sha2::{Digest, Sha256};
 
-use mixgauge_data::{Format, ReadOptions};
+use mixgauge_data::Format;
 use mixgauge_select::SweepSettings;
 
 use crate::error::AppError;
-use crate::state::AppState;
+use crate::options::{DataOptions, ReadLimits};
+use crate::server::Preload;
+use crate::state::{AppState, Limits};
 use crate::store::{
     CreateOutcome, DatasetRecord, DeleteOutcome, JobState, NewSweep, PutOutcome, SweepJob,
 };
@@ -33,30 +34,52 @@ const SWEEP_BODY_LIMIT: usize = 64 * 1024;
 /// Builds the service's router over `state`. No socket is opened: serve it with `axum::serve`,
 /// or call it directly with `tower::ServiceExt::oneshot` in tests.
 pub fn router(state: AppState) -> Router {
-    let upload_limit = state.max_upload_bytes;
-    Router::new()
+    let cors = crate::guard::cors(&state.cors_origins);
+    let router = Router::new()
         .route("/healthz", get(healthz))
         .route("/readyz", get(readyz))
+        .route("/metrics", get(metrics))
         .route(
             "/v1/datasets",
             post(upload_dataset)
                 .get(list_datasets)
-                .layer(DefaultBodyLimit::max(upload_limit)),
+                .layer(DefaultBodyLimit::disable()),
         )
         .route("/v1/datasets/{id}", get(get_dataset).delete(delete_dataset))
         .route(
             "/v1/sweeps",
             post(create_sweep)
                 .get(list_sweeps)
-                .layer(DefaultBodyLimit::max(SWEEP_BODY_LIMIT)),
+                .layer(DefaultBodyLimit::disable()),
         )
         .route("/v1/sweeps/{id}", get(get_sweep))
         .route("/v1/sweeps/{id}/cancel", post(cancel_sweep))
         .route("/v1/sweeps/{id}/report", get(sweep_report))
+        .route(
+            "/v1/sweeps/{id}/models/{covariance}/{components}",
+            get(crate::results::model),
+        )
+        .route(
+            "/v1/sweeps/{id}/score",
+            post(crate::results::score).layer(DefaultBodyLimit::disable()),
+        )
+        .merge(crate::page::routes())
         .fallback(no_route)
         .method_not_allowed_fallback(wrong_method)
-        .layer(tower_http::trace::TraceLayer::new_for_http())
-        .with_state(state)
+        .layer(axum::middleware::from_fn_with_state(
+            state.clone(),
+            crate::guard::authorise,
+        ))
+        .layer(axum::middleware::from_fn_with_state(
+            state.clone(),
+            crate::guard::time_and_count,
+        ))
+        .layer(tower_http::trace::TraceLayer::new_for_http());
+    let router = match cors {
+        Some(c) => router.layer(c),
+        None => router,
+    };
+    router.with_state(state)
 }
 
 async fn no_route(req: Request) -> AppError {
@@ -85,6 +108,18 @@ async fn wrong_method(req: Request) -> AppError {
 
 async fn healthz() -> Json<Value> {
     Json(json!({ "status": "ok" }))
+}
+
+async fn metrics(State(state): State<AppState>) -> Result<Response, AppError> {
+    let jobs = state.store.count_by_state().await?;
+    Ok((
+        [(
+            header::CONTENT_TYPE,
+            "text/plain; version=0.0.4; charset=utf-8",
+        )],
+        state.metrics.render(&jobs),
+    )
+        .into_response())
 }
 
 async fn readyz(State(state): State<AppState>) -> Response {
@@ -136,49 +171,6 @@ fn page(query: Result<Query<Page>, QueryRejection>) -> Result<(usize, Option<Str
     Ok((limit, p.after))
 }
 
-fn body(bytes: Result<Bytes, BytesRejection>, limit: usize) -> Result<Bytes, AppError> {
-    bytes.map_err(|e| {
-        if e.status() == StatusCode::PAYLOAD_TOO_LARGE {
-            AppError::client(
-                StatusCode::PAYLOAD_TOO_LARGE,
-                "body_too_large",
-                format!("the request body is larger than the limit of {limit} bytes; send a smaller file or raise the server's upload limit"),
-            )
-            .with_detail(json!({ "limit_bytes": limit }))
-        } else {
-            AppError::client(StatusCode::BAD_REQUEST, "bad_body", e.body_text())
-        }
-    })
-}
-
-/// The upload format named by `Content-Type` (parameters such as `charset` are ignored).
-fn upload_format(headers: &HeaderMap, bytes: &[u8]) -> Result<Format, AppError> {
-    let given = headers
-        .get(header::CONTENT_TYPE)
-        .and_then(|v| v.to_str().ok())
-        .unwrap_or("");
-    let media = given
-        .split(';')
-        .next()
-        .unwrap_or("")
-        .trim()
-        .to_ascii_lowercase();
-    match media.as_str() {
-        "text/csv" => Ok(Format::Csv),
-        "application/json" => Ok(Format::Json),
-        "application/x-npy" => Ok(Format::Npy),
-        "application/octet-stream" if bytes.starts_with(b"\x93NUMPY") => Ok(Format::Npy),
-        _ => Err(AppError::client(
-            StatusCode::UNSUPPORTED_MEDIA_TYPE,
-            "unsupported_media_type",
-            format!(
-                "Content-Type {given:?} is not a dataset format; send text/csv, application/json, application/x-npy, or application/octet-stream holding an NPY file"
-            ),
-        )
-        .with_detail(json!({ "content_type": given }))),
-    }
-}
-
 fn format_name(f: Format) -> String {
     f.name().to_ascii_lowercase()
 }
@@ -192,6 +184,7 @@ fn dataset_json(d: &DatasetRecord) -> Value {
     json!({
         "id": d.id,
         "rows": d.rows,
+        "incomplete_rows": d.incomplete_rows,
         "columns": d.columns,
         "column_names": d.column_names,
         "sha256": d.sha256,
@@ -201,43 +194,87 @@ fn dataset_json(d: &DatasetRecord) -> Value {
     })
 }
 
-async fn upload_dataset(
-    State(state): State<AppState>,
-    headers: HeaderMap,
-    bytes: Result<Bytes, BytesRejection>,
-) -> Result<Response, AppError> {
-    let bytes = body(bytes, state.max_upload_bytes)?;
-    let format = upload_format(&headers, &bytes)?;
-    // No copy when the body is uniquely owned, which it is here.
-    let raw = Vec::from(bytes);
+async fn upload_dataset(State(state): State<AppState>, req: Request) -> Result<Response, AppError> {
+    let upload = crate::intake::upload(&state, req, false).await?;
+    Ok(
+        match store_dataset(&state, upload.bytes, upload.format).await? {
+            PutOutcome::Created(d) => (StatusCode::CREATED, Json(dataset_json(&d))).into_response(),
+            PutOutcome::Existing(d) => (StatusCode::OK, Json(dataset_json(&d))).into_response(),
+        },
+    )
+}
+
+/// Checks that `raw` reads as a dataset (under the row and column limits) and stores it.
+async fn store_dataset(
+    state: &AppState,
+    raw: Vec<u8>,
+    format: Format,
+) -> Result<PutOutcome, AppError> {
+    let limits = state.limits.read;
+    let size = raw.len();
     // Parsing a large file is CPU work: off the async threads.
     let (raw, parsed) = tokio::task::spawn_blocking(move || {
-        let parsed = mixgauge_data::read_bytes(&raw, &ReadOptions::default().format(format));
+        let parsed = check_upload(&raw, format, &limits);
         (raw, parsed)
     })
     .await
     .map_err(|e| crate::error::StoreError::Task(e.to_string()))?;
-    let data = parsed.map_err(|e| {
-        AppError::client(
-            StatusCode::UNPROCESSABLE_ENTITY,
-            "invalid_dataset",
-            e.to_string(),
-        )
-        .with_detail(json!({ "format": format_name(format) }))
-    })?;
+    let (data, incomplete_rows) = parsed.map_err(|e| invalid_data(&e, format))?;
     let meta = DatasetRecord {
         id: dataset_id(&data.sha256),
-        rows: data.values.nrows(),
+        rows: data.values.nrows() + incomplete_rows,
+        incomplete_rows,
         columns: data.values.ncols(),
         column_names: data.column_names.clone(),
         sha256: data.sha256.clone(),
         format: format_name(format),
         created: now_ms(),
     };
-    Ok(match state.store.put_dataset(meta, raw).await? {
-        PutOutcome::Created(d) => (StatusCode::CREATED, Json(dataset_json(&d))).into_response(),
-        PutOutcome::Existing(d) => (StatusCode::OK, Json(dataset_json(&d))).into_response(),
-    })
+    let outcome = state.store.put_dataset(meta, raw).await?;
+    if matches!(outcome, PutOutcome::Created(_)) {
+        state.metrics.uploaded(size);
+    }
+    Ok(outcome)
+}
+
+/// Reads an upload as every sweep will: strictly, or — when the only fault is missing or
+/// non-finite values — again with incomplete rows dropped, so a file with gaps is stored for
+/// sweeps that choose to drop them. Returns the rows read and how many were incomplete.
+fn check_upload(
+    raw: &[u8],
+    format: Format,
+    limits: &ReadLimits,
+) -> Result<(mixgauge_data::Dataset, usize), mixgauge_data::DataError> {
+    use mixgauge_data::DataError;
+    let strict = DataOptions::default().read_options(format, limits);
+    match mixgauge_data::read_bytes(raw, &strict) {
+        Ok(data) => Ok((data, 0)),
+        Err(DataError::MissingValue { .. } | DataError::NonFinite { .. }) => {
+            let lenient = DataOptions {
+                drop_incomplete: true,
+                ..DataOptions::default()
+            };
+            match mixgauge_data::read_bytes(raw, &lenient.read_options(format, limits)) {
+                Ok(data) => {
+                    let dropped = data.dropped_rows;
+                    Ok((data, dropped))
+                }
+                // Every row has a gap (AllRowsDropped): nothing a sweep could fit.
+                Err(e) => Err(e),
+            }
+        }
+        Err(e) => Err(e),
+    }
+}
+
+/// 422 for data the reader refused; its message names the row, column or field.
+pub(crate) fn invalid_data(e: &mixgauge_data::DataError, format: Format) -> AppError {
+    AppError::client(
+        StatusCode::UNPROCESSABLE_ENTITY,
+        "invalid_dataset",
+        e.to_string(),
+    )
+    .with_detail(json!({ "format": format_name(format) }))
 }
 
 fn now_ms() -> i64 {
@@ -291,27 +328,31 @@ async fn delete_dataset(
 }
 
 /// The body of `POST /v1/sweeps`.
-#[derive(Debug, Deserialize)]
+#[derive(Debug, Default, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct SweepRequest {
-    dataset: String,
+    /// Absent only in a multipart request, whose `file` part is the dataset.
+    #[serde(default)]
+    dataset: Option<String>,
     #[serde(default)]
     settings: serde_json::Map<String, Value>,
+    #[serde(default)]
+    data: Option<Value>,
 }
 
-fn sweep_id(id: i64) -> String {
+pub(crate) fn sweep_id(id: i64) -> String {
     format!("sw-{id}")
 }
 
 /// The numeric id in `sw-<n>`; anything else names no sweep.
-fn parse_sweep_id(text: &str) -> Result<i64, AppError> {
+pub(crate) fn parse_sweep_id(text: &str) -> Result<i64, AppError> {
     text.strip_prefix("sw-")
         .and_then(|n| n.parse::<i64>().ok())
         .filter(|n| *n > 0)
         .ok_or_else(|| AppError::not_found("sweep", "sweep_not_found", text))
 }
 
-fn unprocessable(code: &'static str, message: String) -> AppError {
+pub(crate) fn unprocessable(code: &'static str, message: String) -> AppError {
     AppError::client(StatusCode::UNPROCESSABLE_ENTITY, code, message)
 }
 
@@ -319,6 +360,7 @@ fn unprocessable(code: &'static str, message: String) -> AppError {
 fn resolve_settings(
     given: &serde_json::Map<String, Value>,
     rows: usize,
+    limits: &Limits,
 ) -> Result<SweepSettings, AppError> {
     let Value::Object(mut merged) =
         serde_json::to_value(SweepSettings::default()).expect("settings serialise")
@@ -350,27 +392,98 @@ fn resolve_settings(
             format!("{e} (the dataset has {rows} rows)"),
         )
     })?;
+    let candidates = settings.components.len() * settings.covariances.len();
+    if candidates > limits.candidates {
+        return Err(unprocessable(
+            "too_many_candidates",
+            format!(
+                "the sweep has {candidates} candidates ({} component counts × {} covariance forms); this server takes at most {} per sweep — split it into several sweeps",
+                settings.components.len(),
+                settings.covariances.len(),
+                limits.candidates
+            ),
+        )
+        .with_detail(json!({ "field": "settings.components", "limit": limits.candidates })));
+    }
     Ok(settings)
 }
 
-async fn create_sweep(
-    State(state): State<AppState>,
-    headers: HeaderMap,
-    bytes: Result<Bytes, BytesRejection>,
-) -> Result<Response, AppError> {
-    let bytes = body(bytes, SWEEP_BODY_LIMIT)?;
-    let req: SweepRequest = serde_json::from_slice(&bytes).map_err(|e| {
+async fn create_sweep(State(state): State<AppState>, req: Request) -> Result<Response, AppError> {
+    let key = idempotency_key(req.headers())?;
+    let (given, dataset) = if crate::intake::is_multipart(req.headers()) {
+        let upload = crate::intake::upload(&state, req, true).await?;
+        let given = match &upload.request {
+            Some(r) => parse_request(r)?,
+            None => SweepRequest::default(),
+        };
+        if given.dataset.is_some() {
+            return Err(AppError::client(
+                StatusCode::BAD_REQUEST,
+                "bad_json",
+                "a multipart sweep request takes its dataset from the `file` part; leave `dataset` out of the `request` part",
+            ));
+        }
+        let dataset = match store_dataset(&state, upload.bytes, upload.format).await? {
+            PutOutcome::Created(d) | PutOutcome::Existing(d) => d,
+        };
+        (given, dataset)
+    } else {
+        let (given, media) = crate::intake::media_type(req.headers());
+        if !media.is_empty() && media != "application/json" {
+            return Err(AppError::client(
+                StatusCode::UNSUPPORTED_MEDIA_TYPE,
+                "unsupported_media_type",
+                format!(
+                    "Content-Type {given:?} is not a sweep request; send application/json, or multipart/form-data with `file` and `request` parts"
+                ),
+            ));
+        }
+        let bytes = crate::intake::read_limited(req.into_body(), SWEEP_BODY_LIMIT).await?;
+        let given = parse_request(&bytes)?;
+        let Some(id) = &given.dataset else {
+            return Err(unprocessable(
+                "invalid_request",
+                "the request names no dataset; send {\"dataset\": \"<id>\", \"settings\": {...}} with the id POST /v1/datasets returned".into(),
+            )
+            .with_detail(json!({ "field": "dataset" })));
+        };
+        let dataset = state.store.get_dataset(id).await?.ok_or_else(|| {
+            unprocessable(
+                "dataset_not_found",
+                format!(
+                    "no dataset has the id {id:?}; upload it with POST /v1/datasets and use the id it returns"
+                ),
+            )
+            .with_detail(json!({ "field": "dataset" }))
+        })?;
+        (given, dataset)
+    };
+    let (status, job) = submit(&state, &given, dataset, key).await?;
+    let id = sweep_id(job.id);
+    Ok((
+        status,
+        [(header::LOCATION, format!("/v1/sweeps/{id}"))],
+        Json(json!({ "id": id, "url": format!("/v1/sweeps/{id}") })),
+    )
+        .into_response())
+}
+
+fn parse_request(bytes: &[u8]) -> Result<SweepRequest, AppError> {
+    serde_json::from_slice(bytes).map_err(|e| {
         AppError::client(
             StatusCode::BAD_REQUEST,
             "bad_json",
             format!(
-                "the body is not a sweep request: {e}; send {{\"dataset\": \"<id>\", \"settings\": {{...}}}}"
+                "the body is not a sweep request: {e}; send {{\"dataset\": \"<id>\", \"settings\": {{...}}, \"data\": {{...}}}}"
             ),
         )
-    })?;
-    let key = match headers.get("idempotency-key") {
-        None => None,
-        Some(v) => Some(
+    })
+}
+
+fn idempotency_key(headers: &HeaderMap) -> Result<Option<String>, AppError> {
+    match headers.get("idempotency-key") {
+        None => Ok(None),
+        Some(v) => Ok(Some(
             v.to_str()
                 .ok()
                 .filter(|k| !k.is_empty() && k.len() <= 255)
@@ -382,54 +495,122 @@ async fn create_sweep(
                     )
                 })?
                 .to_string(),
-        ),
+        )),
+    }
+}
+
+/// Resolves and checks a sweep request over `dataset`, then queues it (or finds the job an
+/// earlier request with the same idempotency key queued).
+async fn submit(
+    state: &AppState,
+    given: &SweepRequest,
+    dataset: DatasetRecord,
+    key: Option<String>,
+) -> Result<(StatusCode, SweepJob), AppError> {
+    let options: DataOptions = match &given.data {
+        None => DataOptions::default(),
+        Some(v) => serde_json::from_value(v.clone()).map_err(|e| {
+            unprocessable(
+                "invalid_data_options",
+                format!("data options are not valid: {e}; the options are columns (list of names), labels (a column name), drop_incomplete and standardise (true/false)"),
+            )
+            .with_detail(json!({ "field": "data" }))
+        })?,
     };
-    let dataset = state.store.get_dataset(&req.dataset).await?.ok_or_else(|| {
-        unprocessable(
-            "dataset_not_found",
-            format!(
-                "no dataset has the id {:?}; upload it with POST /v1/datasets and use the id it returns",
-                req.dataset
-            ),
-        )
-        .with_detail(json!({ "field": "dataset" }))
-    })?;
-    let settings = resolve_settings(&req.settings, dataset.rows)?;
+    // Options other than the defaults change the rows, and a file with gaps reads only when
+    // they are dropped: read the file again to check now, so a misspelt column or a missing
+    // value is a 422 here rather than a failed job later.
+    let rows = if options == DataOptions::default() && dataset.incomplete_rows == 0 {
+        dataset.rows
+    } else {
+        let bytes = state
+            .store
+            .dataset_bytes(&dataset.id)
+            .await?
+            .ok_or_else(|| AppError::not_found("dataset", "dataset_not_found", &dataset.id))?;
+        let format = parse_format(&dataset.format)?;
+        let limits = state.limits.read;
+        let checked = options.clone();
+        let parsed = tokio::task::spawn_blocking(move || {
+            crate::options::prepare(&bytes, format, &checked, &limits)
+                .map(|p| p.data.values.nrows())
+        })
+        .await
+        .map_err(|e| crate::error::StoreError::Task(e.to_string()))?;
+        parsed.map_err(|e| {
+            invalid_data(&e, format)
+                .with_detail(json!({ "field": "data", "format": dataset.format }))
+        })?
+    };
+    let settings = resolve_settings(&given.settings, rows, &state.limits)?;
     let settings_json = serde_json::to_string(&settings).expect("settings serialise");
+    let data_json = serde_json::to_string(&options).expect("options serialise");
     // The hash covers the resolved request, so key order and spelled-out defaults do not matter.
     let request_hash = hex(&Sha256::digest(
-        format!("{}\n{settings_json}", dataset.id).as_bytes(),
+        format!("{}\n{settings_json}\n{data_json}", dataset.id).as_bytes(),
     ));
     let outcome = state
         .store
         .create_sweep(NewSweep {
             dataset: dataset.id,
             settings: settings_json,
+            data: data_json,
             idempotency_key: key,
             request_hash,
         })
         .await?;
-    let (status, job) = match outcome {
+    match outcome {
         CreateOutcome::Created(job) => {
             state.wake.notify_waiters();
-            (StatusCode::ACCEPTED, job)
+            Ok((StatusCode::ACCEPTED, job))
         }
-        CreateOutcome::Existing(job) => (StatusCode::OK, job),
-        CreateOutcome::KeyConflict => {
-            return Err(AppError::client(
-                StatusCode::CONFLICT,
-                "idempotency_key_reused",
-                "this Idempotency-Key was already used with a different request; use a new key for a new sweep",
-            ));
+        CreateOutcome::Existing(job) => Ok((StatusCode::OK, job)),
+        CreateOutcome::KeyConflict => Err(AppError::client(
+            StatusCode::CONFLICT,
+            "idempotency_key_reused",
+            "this Idempotency-Key was already used with a different request; use a new key for a new sweep",
+        )),
+    }
+}
+
+pub(crate) fn parse_format(name: &str) -> Result<Format, AppError> {
+    Ok(match name {
+        "csv" => Format::Csv,
+        "npy" => Format::Npy,
+        "json" => Format::Json,
+        other => {
+            return Err(AppError::Internal(crate::error::StoreError::Corrupt(
+                format!("dataset format {other:?}"),
+            )));
         }
+    })
+}
+
+/// Uploads the start-up dataset and queues its sweep (idempotent across restarts: the key is
+/// derived from the request, so a restart finds the earlier job).
+pub(crate) async fn preload(state: &AppState, p: Preload) -> Result<String, AppError> {
+    let dataset = match store_dataset(state, p.bytes, p.format).await? {
+        PutOutcome::Created(d) | PutOutcome::Existing(d) => d,
     };
-    let id = sweep_id(job.id);
-    Ok((
-        status,
-        [(header::LOCATION, format!("/v1/sweeps/{id}"))],
-        Json(json!({ "id": id, "url": format!("/v1/sweeps/{id}") })),
-    )
-        .into_response())
+    let data = serde_json::to_value(&p.data).expect("options serialise");
+    let key = format!(
+        "start-up-{}",
+        &hex(&Sha256::digest(
+            format!(
+                "{}\n{}\n{data}",
+                dataset.id,
+                Value::Object(p.settings.clone())
+            )
+            .as_bytes()
+        ))[..32]
+    );
+    let given = SweepRequest {
+        dataset: None,
+        settings: p.settings,
+        data: Some(data),
+    };
+    let (_, job) = submit(state, &given, dataset, Some(key)).await?;
+    Ok(sweep_id(job.id))
 }
 
 fn hex(bytes: &[u8]) -> String {
@@ -453,8 +634,16 @@ fn sweep_json(job: &SweepJob, full: bool) -> Result<Value, AppError> {
         "progress": { "done": job.done, "total": job.total },
         "cancel_requested": job.cancel_requested,
         "settings": parse(&job.settings, "settings")?,
+        "data": parse(&job.data, "data options")?,
+        "finished": parse(&job.finished, "finished candidates")?,
+        "requeues": job.requeues,
         "created": job.created,
         "updated": job.updated,
+        "links": {
+            "report": format!("/v1/sweeps/{}/report", sweep_id(job.id)),
+            "models": format!("/v1/sweeps/{}/models/{{covariance}}/{{components}}", sweep_id(job.id)),
+            "score": format!("/v1/sweeps/{}/score", sweep_id(job.id)),
+        },
     });
     if full {
         if let Some(r) = &job.result {
@@ -467,7 +656,7 @@ fn sweep_json(job: &SweepJob, full: bool) -> Result<Value, AppError> {
     Ok(v)
 }
 
-async fn find_sweep(state: &AppState, text: &str) -> Result<SweepJob, AppError> {
+pub(crate) async fn find_sweep(state: &AppState, text: &str) -> Result<SweepJob, AppError> {
     let id = parse_sweep_id(text)?;
     state
         .store

@@ -14,7 +14,13 @@
 #![deny(missing_docs)]
 
 mod error;
+mod guard;
 mod http;
+mod intake;
+mod metrics;
+mod options;
+mod page;
+mod results;
 mod server;
 mod state;
 mod store;
@@ -22,10 +28,12 @@ mod worker;
 
 pub use error::{AppError, StoreError};
 pub use http::router;
-pub use server::{ServeConfig, run, serve};
-pub use state::AppState;
+pub use metrics::Metrics;
+pub use options::{DataOptions, ReadLimits};
+pub use server::{Preload, ServeConfig, run, serve};
+pub use state::{AppState, Limits};
 pub use store::{
-    CreateOutcome, DatasetRecord, DeleteOutcome, Finish, JobState, NewSweep, PutOutcome,
-    SqliteStore, Store, SweepJob,
+    CreateOutcome, DatasetRecord, DeleteOutcome, Finish, JobProgress, JobState, NewSweep,
+    PutOutcome, SqliteStore, Store, StoredModel, SweepJob,
 };
 pub use worker::WorkerPool;

@@ -11,15 +11,18 @@ use std::sync::Arc;
 use std::sync::atomic::AtomicBool;
 use std::time::Duration;
 
-use mixgauge_data::{Format, ReadOptions};
-use mixgauge_engine::Rows;
+use std::time::Instant;
+
+use mixgauge_data::{Format, Standardizer};
+use mixgauge_engine::{CovarianceForm, Mixture, ModelDocument, Rows};
 use mixgauge_select::{Progress, SelectError, SweepInput, SweepSettings, sweep};
 use tokio::sync::watch;
 use tokio::task::JoinHandle;
 
 use crate::error::StoreError;
+use crate::options::{DataOptions, ReadLimits, prepare};
 use crate::state::AppState;
-use crate::store::{Finish, SweepJob};
+use crate::store::{Finish, JobProgress, StoredModel, SweepJob};
 
 /// Shortest time between two progress writes of one job.
 pub(crate) const PROGRESS_INTERVAL: Duration = Duration::from_millis(250);
@@ -55,15 +58,18 @@ impl WorkerPool {
         Ok(WorkerPool { shutdown, handles })
     }
 
-    /// Tells the workers to take no new jobs and waits for idle ones to exit. A worker in the
-    /// middle of a sweep is not waited for: its job stays `running` in the store and is
-    /// re-queued at the next start.
-    pub async fn stop(self) {
+    /// Tells the workers to take no new jobs, stops the sweeps in progress and waits up to
+    /// `grace` for the workers to put them back in the queue. A worker still busy after that
+    /// is abandoned: its job stays `running` in the store and is re-queued at the next start.
+    pub async fn stop(self, state: &AppState, grace: Duration) {
         let _ = self.shutdown.send(true);
-        for h in self.handles {
-            if h.is_finished() {
-                let _ = h.await;
-            } else {
+        state.begin_shutdown();
+        let deadline = tokio::time::Instant::now() + grace;
+        for mut h in self.handles {
+            if tokio::time::timeout_at(deadline, &mut h).await.is_err() {
+                tracing::warn!(
+                    "a worker did not stop in time; its sweep is re-queued at the next start"
+                );
                 h.abort();
             }
         }
@@ -77,6 +83,12 @@ async fn worker_loop(state: AppState, mut shutdown: watch::Receiver<bool>) {
         }
         // Registered before looking at the queue, so a job created in between still wakes us.
         let woken = state.wake.notified();
+        if state
+            .shutting_down
+            .load(std::sync::atomic::Ordering::SeqCst)
+        {
+            return;
+        }
         match state.store.claim_next().await {
             Ok(Some(job)) => run_job(&state, job).await,
             Ok(None) => {
@@ -121,6 +133,22 @@ async fn run_job(state: &AppState, job: SweepJob) {
         .lock()
         .expect("cancel map lock poisoned")
         .remove(&id);
+    if how == Finish::Cancelled
+        && state
+            .shutting_down
+            .load(std::sync::atomic::Ordering::SeqCst)
+    {
+        match state.store.hand_back(id).await {
+            Ok(_) => tracing::info!(
+                sweep = id,
+                "sweep handed back to the queue for the next start"
+            ),
+            Err(e) => {
+                tracing::error!(sweep = id, error = %e, "cannot hand a sweep back; it is re-queued at the next start")
+            }
+        }
+        return;
+    }
     let label = match &how {
         Finish::Succeeded { .. } => "succeeded",
         Finish::Failed(_) => "failed",
@@ -154,40 +182,62 @@ async fn execute(
     };
     let settings: SweepSettings = serde_json::from_str(&job.settings)
         .map_err(|e| StoreError::Corrupt(format!("settings of sweep {}: {e}", job.id)))?;
+    let options: DataOptions = serde_json::from_str(&job.data)
+        .map_err(|e| StoreError::Corrupt(format!("data options of sweep {}: {e}", job.id)))?;
 
-    let (progress_tx, mut progress_rx) = watch::channel((0u64, 0u64));
+    let (progress_tx, mut progress_rx) = watch::channel(JobProgress::default());
     let store = Arc::clone(&state.store);
     let id = job.id;
+    let metrics = Arc::clone(&state.metrics);
     let writer = tokio::spawn(async move {
+        let mut recorded = 0;
         while progress_rx.changed().await.is_ok() {
-            let (done, total) = *progress_rx.borrow_and_update();
-            if let Err(e) = store.update_progress(id, done, total).await {
+            let p = progress_rx.borrow_and_update().clone();
+            metrics.fits_done(p.done.saturating_sub(recorded));
+            recorded = p.done;
+            if let Err(e) = store.update_progress(id, p).await {
                 tracing::warn!(sweep = id, error = %e, "cannot record progress");
             }
             tokio::time::sleep(PROGRESS_INTERVAL).await;
         }
     });
+    let limits = state.limits.read;
+    let started = Instant::now();
     let how = tokio::task::spawn_blocking(move || {
-        run_sweep(&bytes, format, &settings, &progress_tx, &cancel)
+        run_sweep(
+            &bytes,
+            format,
+            &options,
+            &limits,
+            &settings,
+            &progress_tx,
+            &cancel,
+        )
     })
     .await
     .map_err(|e| StoreError::Task(format!("sweep task: {e}")))?;
     let _ = writer.await;
+    if matches!(how, Finish::Succeeded { .. }) {
+        state.metrics.sweep_took(started.elapsed());
+    }
     Ok(how)
 }
 
-/// The blocking part: parse, sweep, render.
+/// The blocking part: read, sweep, render, and the models in the data's own units.
 fn run_sweep(
     bytes: &[u8],
     format: Format,
+    options: &DataOptions,
+    limits: &ReadLimits,
     settings: &SweepSettings,
-    progress: &watch::Sender<(u64, u64)>,
+    progress: &watch::Sender<JobProgress>,
     cancel: &AtomicBool,
 ) -> Finish {
-    let data = match mixgauge_data::read_bytes(bytes, &ReadOptions::default().format(format)) {
-        Ok(d) => d,
+    let prepared = match prepare(bytes, format, options, limits) {
+        Ok(p) => p,
         Err(e) => return Finish::Failed(e.to_string()),
     };
+    let data = &prepared.data;
     let Some(values) = data.values.as_slice() else {
         return Finish::Failed("dataset values are not contiguous".into());
     };
@@ -200,28 +250,99 @@ fn run_sweep(
         column_names: data.column_names.clone(),
         sha256: data.sha256.clone(),
         dropped_rows: data.dropped_rows,
-        labels: None,
-        log_jacobian: 0.0,
-        standardised: false,
+        labels: data.labels.as_deref(),
+        log_jacobian: prepared.log_jacobian(),
+        standardised: options.standardise,
     };
     let report = |p: &Progress| {
-        progress.send_replace((p.done as u64, p.total as u64));
+        let finished: Vec<serde_json::Value> = p
+            .finished
+            .iter()
+            .map(|c| serde_json::json!({ "covariance": c.covariance, "components": c.components }))
+            .collect();
+        progress.send_replace(JobProgress {
+            done: p.done as u64,
+            total: p.total as u64,
+            finished: serde_json::Value::Array(finished).to_string(),
+        });
     };
-    match sweep(&input, settings, &report, cancel) {
-        Ok(outcome) => {
-            let report =
-                match mixgauge_report::render_outcome(&outcome, values, data.values.ncols()) {
-                    Ok(r) => r,
-                    Err(e) => return Finish::Failed(format!("the report could not be drawn: {e}")),
-                };
-            match serde_json::to_string(&outcome.result) {
-                Ok(result) => Finish::Succeeded { report, result },
-                Err(e) => Finish::Failed(format!("the result could not be written: {e}")),
-            }
-        }
-        Err(SelectError::Cancelled) => Finish::Cancelled,
-        Err(e) => Finish::Failed(e.to_string()),
+    let outcome = match sweep(&input, settings, &report, cancel) {
+        Ok(o) => o,
+        Err(SelectError::Cancelled) => return Finish::Cancelled,
+        Err(e) => return Finish::Failed(e.to_string()),
+    };
+    let report = match mixgauge_report::render_outcome(&outcome, values, data.values.ncols()) {
+        Ok(r) => r,
+        Err(e) => return Finish::Failed(format!("the report could not be drawn: {e}")),
+    };
+    let mut models = Vec::with_capacity(outcome.models.len());
+    for (choice, model) in &outcome.models {
+        let in_units = match &prepared.standardizer {
+            Some(s) => match to_data_units(model, s) {
+                Ok(m) => m,
+                Err(e) => {
+                    return Finish::Failed(format!(
+                        "the {} K={} model could not be put back in the data's units: {e}",
+                        choice.covariance, choice.components
+                    ));
+                }
+            },
+            None => model.clone(),
+        };
+        let mut doc = ModelDocument::from_mixture(&in_units);
+        doc.column_names = Some(data.column_names.clone());
+        models.push(StoredModel {
+            covariance: choice.covariance.to_string(),
+            components: choice.components,
+            document: doc.to_json(),
+        });
     }
+    match serde_json::to_string(&outcome.result) {
+        Ok(result) => Finish::Succeeded {
+            report,
+            result,
+            models,
+        },
+        Err(e) => Finish::Failed(format!("the result could not be written: {e}")),
+    }
+}
+
+/// `model` fitted on standardised rows `z = (x − mean) / scale`, as a model of `x`: means map
+/// to `mean + scale·μ`, covariances to `S Σ S` with `S = diag(scale)`. The density of `x` is
+/// then the density of `z` times the Jacobian, so scores agree with the result document's.
+fn to_data_units(model: &Mixture, s: &Standardizer) -> Result<Mixture, mixgauge_engine::Error> {
+    let k = model.components();
+    let d = model.dims();
+    let mut means = Vec::with_capacity(k * d);
+    let mut covariances = Vec::new();
+    for c in 0..k {
+        means.extend(
+            model
+                .mean(c)
+                .iter()
+                .zip(s.means.iter().zip(&s.scales))
+                .map(|(m, (centre, scale))| centre + scale * m),
+        );
+        match model.form() {
+            CovarianceForm::Full => {
+                let cov = model.covariance(c);
+                for i in 0..d {
+                    for j in 0..d {
+                        // s_i·s_j is computed first, so entry (i, j) and (j, i) stay equal.
+                        covariances.push(cov[i * d + j] * (s.scales[i] * s.scales[j]));
+                    }
+                }
+            }
+            CovarianceForm::Diagonal => covariances.extend(
+                model
+                    .variances(c)
+                    .iter()
+                    .zip(&s.scales)
+                    .map(|(v, scale)| v * (scale * scale)),
+            ),
+        }
+    }
+    Mixture::new(model.form(), model.weights().to_vec(), means, covariances)
 }
 
 #[cfg(test)]
@@ -237,6 +358,7 @@ mod tests {
         let meta = DatasetRecord {
             id: "ds-t".into(),
             rows: 8,
+            incomplete_rows: 0,
             columns: 2,
             column_names: vec!["a".into(), "b".into()],
             sha256: "t".repeat(64),
@@ -247,6 +369,7 @@ mod tests {
         let new = NewSweep {
             dataset: "ds-t".into(),
             settings: serde_json::to_string(&settings).unwrap(),
+            data: "{}".into(),
             idempotency_key: None,
             request_hash: "h".into(),
         };

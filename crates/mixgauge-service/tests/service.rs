@@ -1,111 +1,13 @@
 //! End-to-end tests of the service: the router driven with `tower::ServiceExt::oneshot` (no
 //! socket), each test on a fresh temporary data directory with its own SQLite database.
 
-use std::sync::Arc;
-use std::time::Duration;
-
-use axum::Router;
 use axum::body::Body;
 use axum::http::{Request, StatusCode, header};
-use http_body_util::BodyExt;
-use mixgauge_service::{
-    AppState, CreateOutcome, JobState, NewSweep, SqliteStore, Store, WorkerPool, router,
-};
+use mixgauge_service::{CreateOutcome, JobState, NewSweep, SqliteStore, Store, WorkerPool, router};
 use serde_json::{Value, json};
-use tower::ServiceExt;
 
-/// A fresh data directory and state over it. Keep the `TempDir` alive for the whole test.
-fn fresh() -> (tempfile::TempDir, AppState) {
-    let dir = tempfile::tempdir().expect("a temp dir");
-    let state = open(&dir);
-    (dir, state)
-}
-
-fn open(dir: &tempfile::TempDir) -> AppState {
-    let store = SqliteStore::open(dir.path()).expect("the store opens");
-    AppState::new(Arc::new(store))
-}
-
-/// Two well-separated groups of 30 rows in 2 columns, no randomness.
-fn two_groups_csv() -> String {
-    let mut s = String::from("width,height\n");
-    for i in 0..60 {
-        let centre = if i % 2 == 0 { 0.0 } else { 8.0 };
-        let t = i as f64;
-        s.push_str(&format!(
-            "{:.6},{:.6}\n",
-            centre + 0.5 * (1.7 * t).sin(),
-            centre + 0.5 * (2.3 * t).cos()
-        ));
-    }
-    s
-}
-
-async fn send(app: &Router, req: Request<Body>) -> (StatusCode, Vec<u8>, header::HeaderMap) {
-    let resp = app.clone().oneshot(req).await.expect("the router answers");
-    let status = resp.status();
-    let headers = resp.headers().clone();
-    let bytes = resp.into_body().collect().await.expect("a body").to_bytes();
-    (status, bytes.to_vec(), headers)
-}
-
-async fn send_json(app: &Router, req: Request<Body>) -> (StatusCode, Value) {
-    let (status, bytes, headers) = send(app, req).await;
-    assert_eq!(
-        headers
-            .get(header::CONTENT_TYPE)
-            .and_then(|v| v.to_str().ok()),
-        Some("application/json"),
-        "status {status}, body {}",
-        String::from_utf8_lossy(&bytes)
-    );
-    (status, serde_json::from_slice(&bytes).expect("a JSON body"))
-}
-
-fn upload(content_type: &str, body: impl Into<Body>) -> Request<Body> {
-    Request::post("/v1/datasets")
-        .header(header::CONTENT_TYPE, content_type)
-        .body(body.into())
-        .unwrap()
-}
-
-fn get(uri: &str) -> Request<Body> {
-    Request::get(uri).body(Body::empty()).unwrap()
-}
-
-fn post_json(uri: &str, body: &Value, key: Option<&str>) -> Request<Body> {
-    let mut b = Request::post(uri).header(header::CONTENT_TYPE, "application/json");
-    if let Some(k) = key {
-        b = b.header("idempotency-key", k);
-    }
-    b.body(Body::from(body.to_string())).unwrap()
-}
-
-async fn upload_groups(app: &Router) -> String {
-    let (status, v) = send_json(app, upload("text/csv", two_groups_csv())).await;
-    assert_eq!(status, StatusCode::CREATED, "{v}");
-    v["id"].as_str().unwrap().to_string()
-}
-
-fn small_sweep(dataset: &str) -> Value {
-    json!({ "dataset": dataset, "settings": { "components": [1, 2], "folds": 2, "restarts": 1 } })
-}
-
-/// Polls a sweep until it reaches a final state; panics after a generous bound.
-async fn wait_final(app: &Router, id: &str) -> Value {
-    for _ in 0..1200 {
-        let (status, v) = send_json(app, get(&format!("/v1/sweeps/{id}"))).await;
-        assert_eq!(status, StatusCode::OK, "{v}");
-        if matches!(
-            v["state"].as_str(),
-            Some("succeeded" | "failed" | "cancelled")
-        ) {
-            return v;
-        }
-        tokio::time::sleep(Duration::from_millis(50)).await;
-    }
-    panic!("sweep {id} did not finish within 60 s");
-}
+mod common;
+use common::*;
 
 #[tokio::test]
 async fn csv_upload_returns_its_metadata_and_dedupes() {
@@ -302,7 +204,7 @@ async fn a_small_sweep_runs_to_a_result_and_a_report() {
     .await;
     assert_eq!(status, StatusCode::CONFLICT);
     assert_eq!(v["error"]["code"], "sweep_finished");
-    pool.stop().await;
+    pool.stop(&state, std::time::Duration::from_secs(5)).await;
 }
 
 #[tokio::test]
@@ -404,20 +306,21 @@ async fn a_job_left_running_is_requeued_and_finished_after_a_restart() {
         .unwrap()
         .unwrap();
     assert_eq!(job.requeues, 1);
-    pool.stop().await;
+    pool.stop(&state, std::time::Duration::from_secs(5)).await;
 }
 
 #[tokio::test]
 async fn the_store_claims_each_job_once_and_only_finishes_running_ones() {
     let dir = tempfile::tempdir().unwrap();
     let store = SqliteStore::open(dir.path()).unwrap();
-    assert_eq!(store.schema_version().await.unwrap(), 1);
+    assert_eq!(store.schema_version().await.unwrap(), 2);
     // Reopening applies no migration twice.
     let store = SqliteStore::open(dir.path()).unwrap();
-    assert_eq!(store.schema_version().await.unwrap(), 1);
+    assert_eq!(store.schema_version().await.unwrap(), 2);
     let new = |key: Option<&str>| NewSweep {
         dataset: "ds-x".into(),
         settings: "{}".into(),
+        data: "{}".into(),
         idempotency_key: key.map(str::to_string),
         request_hash: "h".into(),
     };
@@ -430,7 +333,17 @@ async fn the_store_claims_each_job_once_and_only_finishes_running_ones() {
     assert_eq!(store.claim_next().await.unwrap().unwrap().id, a.id);
     assert_eq!(store.claim_next().await.unwrap().unwrap().id, b.id);
     assert!(store.claim_next().await.unwrap().is_none());
-    store.update_progress(a.id, 3, 8).await.unwrap();
+    store
+        .update_progress(
+            a.id,
+            mixgauge_service::JobProgress {
+                done: 3,
+                total: 8,
+                finished: "[]".into(),
+            },
+        )
+        .await
+        .unwrap();
     let got = store.get_sweep(a.id).await.unwrap().unwrap();
     assert_eq!((got.done, got.total), (3, 8));
     assert!(

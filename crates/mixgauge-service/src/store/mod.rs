@@ -18,8 +18,11 @@ pub use sqlite::SqliteStore;
 pub struct DatasetRecord {
     /// Public id, derived from the content hash.
     pub id: String,
-    /// Data rows.
+    /// Data rows, complete or not.
     pub rows: usize,
+    /// Rows with a missing or non-finite feature value; a sweep reads such a file only when
+    /// it chooses to drop incomplete rows.
+    pub incomplete_rows: usize,
     /// Feature columns.
     pub columns: usize,
     /// Feature column names, in order.
@@ -109,6 +112,10 @@ pub struct SweepJob {
     pub dataset: String,
     /// Fully resolved `SweepSettings`, as JSON text.
     pub settings: String,
+    /// How the dataset is read for this sweep (columns, labels, …), as JSON text.
+    pub data: String,
+    /// Candidates finished so far, as a JSON list of `{covariance, components}`.
+    pub finished: String,
     /// Where the job is in its lifecycle.
     pub state: JobState,
     /// Fits finished so far.
@@ -136,6 +143,8 @@ pub struct NewSweep {
     pub dataset: String,
     /// Resolved settings as JSON text.
     pub settings: String,
+    /// Read options as JSON text.
+    pub data: String,
     /// The client's `Idempotency-Key`, if any.
     pub idempotency_key: Option<String>,
     /// Hash of the request body, compared when the key is reused.
@@ -156,17 +165,41 @@ pub enum CreateOutcome {
 /// How a running job ended.
 #[derive(Clone, Debug, PartialEq, Eq)]
 pub enum Finish {
-    /// With a result document (JSON) and its HTML report.
+    /// With a result document (JSON), its HTML report and the full-data models.
     Succeeded {
         /// `SweepResult` as JSON text.
         result: String,
         /// The rendered report.
         report: String,
+        /// One model document per fitted candidate.
+        models: Vec<StoredModel>,
     },
     /// With an error message.
     Failed(String),
     /// Stopped by a cancel request.
     Cancelled,
+}
+
+/// A full-data model of a finished sweep.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct StoredModel {
+    /// `full` or `diagonal`.
+    pub covariance: String,
+    /// Component count.
+    pub components: usize,
+    /// The `mixgauge.model/1` document as JSON text.
+    pub document: String,
+}
+
+/// Progress of a running job, as the worker reports it.
+#[derive(Clone, Debug, Default, PartialEq, Eq)]
+pub struct JobProgress {
+    /// Fits finished.
+    pub done: u64,
+    /// Fits in the sweep.
+    pub total: u64,
+    /// Finished candidates as a JSON list of `{covariance, components}`.
+    pub finished: String,
 }
 
 /// Persistence of datasets and sweep jobs. Every method may be called from async code: an
@@ -206,7 +239,7 @@ pub trait Store: Send + Sync {
     /// Marks the oldest queued job running and returns it.
     async fn claim_next(&self) -> Result<Option<SweepJob>, StoreError>;
     /// Records progress of a running job.
-    async fn update_progress(&self, id: i64, done: u64, total: u64) -> Result<(), StoreError>;
+    async fn update_progress(&self, id: i64, progress: JobProgress) -> Result<(), StoreError>;
     /// Ends a running job. Returns false if the job was not running.
     async fn finish(&self, id: i64, how: Finish) -> Result<bool, StoreError>;
     /// Cancels a queued job at once and records the request on a running one (its worker
@@ -214,6 +247,18 @@ pub trait Store: Send + Sync {
     async fn request_cancel(&self, id: i64) -> Result<Option<JobState>, StoreError>;
     /// The HTML report of a succeeded job.
     async fn report(&self, id: i64) -> Result<Option<String>, StoreError>;
+    /// The model document of one candidate of a succeeded job.
+    async fn model(
+        &self,
+        id: i64,
+        covariance: &str,
+        components: usize,
+    ) -> Result<Option<String>, StoreError>;
+    /// Puts one running job back in the queue (this process is shutting down and stopped it
+    /// before it finished). Returns false if the job was not running.
+    async fn hand_back(&self, id: i64) -> Result<bool, StoreError>;
+    /// How many jobs are in each state.
+    async fn count_by_state(&self) -> Result<Vec<(JobState, u64)>, StoreError>;
     /// Puts every job left `running` back in the queue (after a crash) and returns how many;
     /// those with a cancel request are marked cancelled instead.
     async fn requeue_running(&self) -> Result<usize, StoreError>;

@@ -14,13 +14,14 @@ use async_trait::async_trait;
 use rusqlite::{Connection, OptionalExtension, Row, params};
 
 use super::{
-    CreateOutcome, DatasetRecord, DeleteOutcome, Finish, JobState, NewSweep, PutOutcome, Store,
-    SweepJob,
+    CreateOutcome, DatasetRecord, DeleteOutcome, Finish, JobProgress, JobState, NewSweep,
+    PutOutcome, Store, SweepJob,
 };
 use crate::error::StoreError;
 
 /// Numbered schema migrations; entry `i` is version `i + 1`. Append only.
-const MIGRATIONS: &[&str] = &[r#"
+const MIGRATIONS: &[&str] = &[
+    r#"
 CREATE TABLE datasets (
     id TEXT PRIMARY KEY,
     sha256 TEXT NOT NULL UNIQUE,
@@ -49,9 +50,22 @@ CREATE TABLE sweeps (
 );
 CREATE INDEX sweeps_by_state ON sweeps (state, id);
 CREATE INDEX sweeps_by_dataset ON sweeps (dataset, state);
-"#];
+"#,
+    r#"
+ALTER TABLE sweeps ADD COLUMN data TEXT NOT NULL DEFAULT '{}';
+ALTER TABLE sweeps ADD COLUMN finished TEXT NOT NULL DEFAULT '[]';
+ALTER TABLE datasets ADD COLUMN incomplete_rows INTEGER NOT NULL DEFAULT 0;
+CREATE TABLE models (
+    sweep INTEGER NOT NULL REFERENCES sweeps (id),
+    covariance TEXT NOT NULL,
+    components INTEGER NOT NULL,
+    document TEXT NOT NULL,
+    PRIMARY KEY (sweep, covariance, components)
+);
+"#,
+];
 
-const JOB_COLUMNS: &str = "id, dataset, settings, state, done, total, result, error, requeues, created, updated, cancel_requested";
+const JOB_COLUMNS: &str = "id, dataset, settings, state, done, total, result, error, requeues, created, updated, cancel_requested, data, finished";
 
 /// The embedded SQLite store. Cheap to clone.
 #[derive(Clone)]
@@ -91,6 +105,8 @@ fn job_from_row(row: &Row<'_>) -> rusqlite::Result<(SweepJob, String)> {
             created: row.get(9)?,
             updated: row.get(10)?,
             cancel_requested: row.get::<_, i64>(11)? != 0,
+            data: row.get(12)?,
+            finished: row.get(13)?,
         },
         state,
     ))
@@ -111,6 +127,7 @@ fn dataset_from_row(row: &Row<'_>) -> rusqlite::Result<(DatasetRecord, String)> 
             column_names: Vec::new(),
             format: row.get(5)?,
             created: row.get(6)?,
+            incomplete_rows: row.get::<_, i64>(7)? as usize,
         },
         row.get(4)?,
     ))
@@ -122,7 +139,8 @@ fn finish_dataset((mut d, names): (DatasetRecord, String)) -> Result<DatasetReco
     Ok(d)
 }
 
-const DATASET_COLUMNS: &str = "id, sha256, rows, columns, column_names, format, created";
+const DATASET_COLUMNS: &str =
+    "id, sha256, rows, columns, column_names, format, created, incomplete_rows";
 
 fn get_job(conn: &Connection, id: i64) -> Result<Option<SweepJob>, StoreError> {
     conn.query_row(
@@ -253,7 +271,7 @@ impl Store for SqliteStore {
                 .map_err(|e| StoreError::Corrupt(e.to_string()))?;
             c.execute(
                 &format!(
-                    "INSERT INTO datasets ({DATASET_COLUMNS}) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)"
+                    "INSERT INTO datasets ({DATASET_COLUMNS}) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)"
                 ),
                 params![
                     meta.id,
@@ -262,7 +280,8 @@ impl Store for SqliteStore {
                     meta.columns as i64,
                     names,
                     meta.format,
-                    meta.created
+                    meta.created,
+                    meta.incomplete_rows as i64
                 ],
             )?;
             Ok(PutOutcome::Created(meta))
@@ -358,9 +377,9 @@ impl Store for SqliteStore {
             }
             let now = now_ms();
             tx.execute(
-                "INSERT INTO sweeps (dataset, settings, state, idempotency_key, request_hash, created, updated)
-                 VALUES (?1, ?2, 'queued', ?3, ?4, ?5, ?5)",
-                params![new.dataset, new.settings, new.idempotency_key, new.request_hash, now],
+                "INSERT INTO sweeps (dataset, settings, data, state, idempotency_key, request_hash, created, updated)
+                 VALUES (?1, ?2, ?3, 'queued', ?4, ?5, ?6, ?6)",
+                params![new.dataset, new.settings, new.data, new.idempotency_key, new.request_hash, now],
             )?;
             let id = tx.last_insert_rowid();
             let job = get_job(&tx, id)?
@@ -415,11 +434,12 @@ impl Store for SqliteStore {
         .await
     }
 
-    async fn update_progress(&self, id: i64, done: u64, total: u64) -> Result<(), StoreError> {
+    async fn update_progress(&self, id: i64, p: JobProgress) -> Result<(), StoreError> {
         self.call(move |c| {
             c.execute(
-                "UPDATE sweeps SET done = ?2, total = ?3, updated = ?4 WHERE id = ?1 AND state = 'running'",
-                params![id, done as i64, total as i64, now_ms()],
+                "UPDATE sweeps SET done = ?2, total = ?3, finished = ?4, updated = ?5
+                 WHERE id = ?1 AND state = 'running'",
+                params![id, p.done as i64, p.total as i64, p.finished, now_ms()],
             )?;
             Ok(())
         })
@@ -428,19 +448,36 @@ impl Store for SqliteStore {
 
     async fn finish(&self, id: i64, how: Finish) -> Result<bool, StoreError> {
         self.call(move |c| {
-            let (state, result, report, error) = match how {
-                Finish::Succeeded { result, report } => {
-                    ("succeeded", Some(result), Some(report), None)
-                }
-                Finish::Failed(e) => ("failed", None, None, Some(e)),
-                Finish::Cancelled => ("cancelled", None, None, None),
+            let (state, result, report, error, models) = match how {
+                Finish::Succeeded {
+                    result,
+                    report,
+                    models,
+                } => ("succeeded", Some(result), Some(report), None, models),
+                Finish::Failed(e) => ("failed", None, None, Some(e), Vec::new()),
+                Finish::Cancelled => ("cancelled", None, None, None, Vec::new()),
             };
-            let n = c.execute(
+            // The result, the report and the models land together or not at all.
+            let tx = c.transaction()?;
+            let n = tx.execute(
                 "UPDATE sweeps SET state = ?2, result = ?3, report = ?4, error = ?5, updated = ?6
                  WHERE id = ?1 AND state = 'running'",
                 params![id, state, result, report, error, now_ms()],
             )?;
-            Ok(n == 1)
+            if n != 1 {
+                return Ok(false);
+            }
+            {
+                let mut insert = tx.prepare(
+                    "INSERT OR REPLACE INTO models (sweep, covariance, components, document)
+                     VALUES (?1, ?2, ?3, ?4)",
+                )?;
+                for m in &models {
+                    insert.execute(params![id, m.covariance, m.components as i64, m.document])?;
+                }
+            }
+            tx.commit()?;
+            Ok(true)
         })
         .await
     }
@@ -475,6 +512,50 @@ impl Store for SqliteStore {
         .await
     }
 
+    async fn model(
+        &self,
+        id: i64,
+        covariance: &str,
+        components: usize,
+    ) -> Result<Option<String>, StoreError> {
+        let covariance = covariance.to_string();
+        self.call(move |c| {
+            Ok(c.query_row(
+                "SELECT document FROM models WHERE sweep = ?1 AND covariance = ?2 AND components = ?3",
+                params![id, covariance, components as i64],
+                |r| r.get::<_, String>(0),
+            )
+            .optional()?)
+        })
+        .await
+    }
+
+    async fn hand_back(&self, id: i64) -> Result<bool, StoreError> {
+        self.call(move |c| {
+            let n = c.execute(
+                "UPDATE sweeps SET state = CASE WHEN cancel_requested = 1 THEN 'cancelled' ELSE 'queued' END,
+                        done = 0, finished = '[]', updated = ?2
+                 WHERE id = ?1 AND state = 'running'",
+                params![id, now_ms()],
+            )?;
+            Ok(n == 1)
+        })
+        .await
+    }
+
+    async fn count_by_state(&self) -> Result<Vec<(JobState, u64)>, StoreError> {
+        self.call(|c| {
+            let mut stmt = c.prepare("SELECT state, COUNT(*) FROM sweeps GROUP BY state")?;
+            let rows = stmt
+                .query_map([], |r| Ok((r.get::<_, String>(0)?, r.get::<_, i64>(1)?)))?
+                .collect::<Result<Vec<_>, _>>()?;
+            rows.into_iter()
+                .map(|(s, n)| Ok((JobState::parse(&s)?, n as u64)))
+                .collect()
+        })
+        .await
+    }
+
     async fn requeue_running(&self) -> Result<usize, StoreError> {
         self.call(|c| {
             let tx = c.transaction()?;
@@ -486,7 +567,8 @@ impl Store for SqliteStore {
                 [now],
             )?;
             let n = tx.execute(
-                "UPDATE sweeps SET state = 'queued', requeues = requeues + 1, updated = ?1
+                "UPDATE sweeps SET state = 'queued', requeues = requeues + 1, done = 0,
+                        finished = '[]', updated = ?1
                  WHERE state = 'running'",
                 [now],
             )?;
