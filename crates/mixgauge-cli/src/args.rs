@@ -36,9 +36,40 @@ pub struct ServeArgs {
     /// Folder of the job database and the uploaded datasets (created if missing).
     #[arg(long, env = "MIXGAUGE_DATA_DIR", default_value = "mixgauge-data")]
     pub data_dir: PathBuf,
-    /// Sweeps run at the same time.
-    #[arg(long, default_value_t = 1)]
+    /// Sweeps run at the same time (each one uses every core).
+    #[arg(long, env = "MIXGAUGE_WORKERS", default_value_t = 1)]
     pub workers: usize,
+    /// Largest dataset upload, in bytes.
+    #[arg(long, env = "MIXGAUGE_MAX_UPLOAD_BYTES", default_value_t = 512 * 1024 * 1024)]
+    pub max_upload_bytes: usize,
+    /// Most rows a dataset may have.
+    #[arg(long, env = "MIXGAUGE_MAX_ROWS", default_value_t = 10_000_000)]
+    pub max_rows: usize,
+    /// Most columns a dataset may have.
+    #[arg(long, env = "MIXGAUGE_MAX_COLUMNS", default_value_t = 512)]
+    pub max_columns: usize,
+    /// Most candidates (component counts × covariance forms) in one sweep.
+    #[arg(long, env = "MIXGAUGE_MAX_CANDIDATES", default_value_t = 200)]
+    pub max_candidates: usize,
+    /// Seconds a request may take (requests carrying data may take up to 10 minutes).
+    #[arg(long, env = "MIXGAUGE_REQUEST_TIMEOUT", default_value_t = 30)]
+    pub request_timeout: u64,
+    /// File of accepted bearer tokens, one per line; with it (or MIXGAUGE_TOKENS, comma-
+    /// separated, read from the environment only so tokens stay out of `ps`) every endpoint
+    /// but the health checks and the page needs `Authorization: Bearer <token>`.
+    #[arg(long, env = "MIXGAUGE_TOKEN_FILE")]
+    pub token_file: Option<PathBuf>,
+    /// An origin allowed to call the API from a browser page (repeat for several). Without
+    /// it no CORS headers are sent.
+    #[arg(
+        long = "cors-origin",
+        env = "MIXGAUGE_CORS_ORIGINS",
+        value_delimiter = ','
+    )]
+    pub cors_origins: Vec<String>,
+    /// Upload the invented trailer-telemetry demo data and queue a sweep over it at start-up.
+    #[arg(long)]
+    pub demo: bool,
 }
 
 #[derive(Debug, Args)]

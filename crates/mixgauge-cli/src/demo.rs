@@ -77,6 +77,10 @@ fn correlation(i: usize, j: usize) -> f64 {
     }
 }
 
+/// Component counts the demo sweeps (CLI and `serve --demo` alike): enough to see the
+/// held-out curve turn over the six invented regimes.
+pub const DEMO_COMPONENTS: [usize; 10] = [1, 2, 3, 4, 5, 6, 7, 8, 9, 10];
+
 /// Rows in the demo file, and the seed they are drawn with.
 pub const DEMO_ROWS: usize = 12_000;
 pub const DEMO_SEED: u64 = 2026;

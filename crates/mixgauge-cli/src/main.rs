@@ -7,6 +7,7 @@ mod failure;
 mod fit;
 mod inputs;
 mod score;
+mod serve;
 mod sweep;
 
 use std::process::ExitCode;
@@ -19,6 +20,11 @@ fn run_demo(a: &args::DemoArgs) -> Result<(), failure::Failure> {
     std::fs::create_dir_all(&a.out_dir).map_err(|e| failure::io("create", &a.out_dir, e))?;
     let result = a.out_dir.join("result.json");
     let report = a.out_dir.join("report.html");
+    let demo_components = format!(
+        "{}..{}",
+        demo::DEMO_COMPONENTS[0],
+        demo::DEMO_COMPONENTS[demo::DEMO_COMPONENTS.len() - 1]
+    );
     let argv = [
         "mixgauge".as_ref(),
         "sweep".as_ref(),
@@ -26,7 +32,7 @@ fn run_demo(a: &args::DemoArgs) -> Result<(), failure::Failure> {
         "--labels".as_ref(),
         "regime".as_ref(),
         "--components".as_ref(),
-        "1..10".as_ref(),
+        demo_components.as_ref(),
         "--out".as_ref(),
         result.as_os_str(),
         "--report".as_ref(),
@@ -56,13 +62,7 @@ fn main() -> ExitCode {
         args::Command::Score(a) => score::run(&a),
         args::Command::Sweep(a) => sweep::run(&a),
         args::Command::Demo(a) => run_demo(&a),
-        args::Command::Serve(a) => mixgauge_service::run(mixgauge_service::ServeConfig {
-            listen: a.listen,
-            data_dir: a.data_dir,
-            workers: a.workers,
-            ..Default::default()
-        })
-        .map_err(|e| failure::Failure::Other(format!("{e:#}"))),
+        args::Command::Serve(a) => serve::run(a),
     };
     match outcome {
         Ok(()) => ExitCode::SUCCESS,
