@@ -18,6 +18,7 @@
   let listTimer = null;
   let jobsNext = null;
   let reportUrl = null; // blob URL of the shown report's stylesheet
+  let reportWatch = null; // follows the shown report's size, to keep its frame fitted
   const datasets = new Map();
 
   // ---- messages ---------------------------------------------------------------------------
@@ -392,6 +393,9 @@
   // ---- report -----------------------------------------------------------------------------
   function hideReport() {
     $("report-panel").hidden = true;
+    if (reportWatch) reportWatch.disconnect();
+    reportWatch = null;
+    $("report-frame").onload = null;
     $("report-frame").removeAttribute("srcdoc");
     if (reportUrl) URL.revokeObjectURL(reportUrl);
     reportUrl = null;
@@ -430,9 +434,27 @@
       doc.head.append(link);
     }
     const frame = $("report-frame");
-    frame.onload = () => fitFrame(frame);
+    frame.onload = () => watchFrame(frame);
     frame.srcdoc = "<!DOCTYPE html>\n" + doc.documentElement.outerHTML;
     $("report-panel").hidden = false;
+  }
+
+  // Fits the frame to the report now and whenever the report's size changes: a narrower
+  // window makes it longer, opening a folded cell too. (The frame runs no script; the
+  // observer is this page's, watching the frame's document.)
+  function watchFrame(frame) {
+    fitFrame(frame);
+    if (reportWatch) reportWatch.disconnect();
+    reportWatch = null;
+    try {
+      const root = frame.contentDocument && frame.contentDocument.documentElement;
+      if (root && typeof ResizeObserver === "function") {
+        reportWatch = new ResizeObserver(() => fitFrame(frame));
+        reportWatch.observe(root);
+      }
+    } catch (_) {
+      // Not readable: the frame keeps the height it was given.
+    }
   }
 
   // Sizes the frame to its content, so the report scrolls with the page rather than inside
@@ -550,10 +572,6 @@
     });
     $("jobs-more").addEventListener("click", () => loadJobs(true).catch(report));
     window.addEventListener("hashchange", openFromHash);
-    // A narrower window makes the report longer, a wider one shorter: fit the frame again.
-    window.addEventListener("resize", () => {
-      if (!$("report-panel").hidden) fitFrame($("report-frame"));
-    });
     showTokenStatus();
     refreshAll();
     openFromHash();
