@@ -31,6 +31,15 @@ const MAX_PAGE: usize = 100;
 /// Largest accepted `POST /v1/sweeps` body: settings are small.
 const SWEEP_BODY_LIMIT: usize = 64 * 1024;
 
+/// Most fits one sweep may ask for, candidates × (folds + 1) × restarts. A sweep lists all its
+/// fits before the first starts (and cannot be cancelled while it does), so a count the server
+/// cannot hold would take the whole process down rather than fail the one job.
+const MAX_FITS: u128 = 1_000_000;
+
+/// Most row numbers the folds of one sweep may hold, folds × rows (each fold lists its
+/// training rows): 800 MB of indices.
+const MAX_FOLD_ROWS: u128 = 200_000_000;
+
 /// Builds the service's router over `state`. No socket is opened: serve it with `axum::serve`,
 /// or call it directly with `tower::ServiceExt::oneshot` in tests.
 pub fn router(state: AppState) -> Router {
@@ -405,6 +414,30 @@ fn resolve_settings(
         )
         .with_detail(json!({ "field": "settings.components", "limit": limits.candidates })));
     }
+    let fits = (candidates as u128)
+        .saturating_mul(settings.folds as u128 + 1)
+        .saturating_mul(settings.restarts as u128);
+    if fits > MAX_FITS {
+        return Err(unprocessable(
+            "too_many_fits",
+            format!(
+                "the sweep needs {fits} fits ({candidates} candidates × ({} folds + 1) × {} restarts); this server runs at most {MAX_FITS} per sweep — use fewer restarts or folds",
+                settings.folds, settings.restarts
+            ),
+        )
+        .with_detail(json!({ "field": "settings.restarts", "limit": MAX_FITS as u64 })));
+    }
+    let fold_rows = (settings.folds as u128).saturating_mul(rows as u128);
+    if fold_rows > MAX_FOLD_ROWS {
+        return Err(unprocessable(
+            "too_many_fits",
+            format!(
+                "{} folds over {rows} rows would list {fold_rows} training rows; this server holds at most {MAX_FOLD_ROWS} per sweep — use fewer folds",
+                settings.folds
+            ),
+        )
+        .with_detail(json!({ "field": "settings.folds", "limit": MAX_FOLD_ROWS as u64 })));
+    }
     Ok(settings)
 }
 
@@ -753,4 +786,39 @@ async fn sweep_report(
         )))
     })?;
     Ok(Html(html).into_response())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn resolve(given: Value, rows: usize) -> Result<SweepSettings, AppError> {
+        let Value::Object(given) = given else {
+            panic!("settings are an object")
+        };
+        resolve_settings(&given, rows, &Limits::default())
+    }
+
+    fn code(r: Result<SweepSettings, AppError>) -> &'static str {
+        match r {
+            Err(AppError::Client { code, .. }) => code,
+            other => panic!("expected a client error, got {other:?}"),
+        }
+    }
+
+    #[test]
+    fn a_sweep_too_large_to_list_is_refused_before_it_is_queued() {
+        // 24 candidates × 6 × 10^12 restarts: listing the fits alone would exhaust memory.
+        assert_eq!(
+            code(resolve(json!({ "restarts": 1_000_000_000_000u64 }), 100)),
+            "too_many_fits"
+        );
+        // 1000 folds over a million rows: a billion training-row numbers.
+        let many_folds =
+            json!({ "components": [1], "covariances": ["diagonal"], "folds": 1000, "restarts": 1 });
+        assert_eq!(code(resolve(many_folds, 1_000_000)), "too_many_fits");
+        // The defaults, and a generous sweep, pass.
+        assert!(resolve(json!({}), 100).is_ok());
+        assert!(resolve(json!({ "folds": 10, "restarts": 20 }), 100_000).is_ok());
+    }
 }
