@@ -493,7 +493,7 @@ th.text, td.text { text-align: left; }
 h3 { font-size: 1.02rem; margin: 1.4rem 0 .4rem; }
 td.notes { white-space: normal; color: var(--muted); font-size: .8rem; padding-top: 0; }
 tr.has-note td, tr.has-note th { border-bottom: 0; }
-td.picks-cell { white-space: normal; min-width: 11.5rem; }
+td.picks-cell { white-space: normal; min-width: 8.5rem; }
 td.status { white-space: normal; }
 tbody tr:last-child td, tbody tr:last-child th { border-bottom: 0; }
 tr.recommended td, tr.recommended th { background: var(--amber); }
