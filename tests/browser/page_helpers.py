@@ -1,4 +1,5 @@
-"""Helpers of the browser tests: a `mixgauge serve` process (:class:`Server`), a headless
+"""Helpers of the browser tests: a `mixgauge serve` process (:class:`Server`, the shared
+:class:`mixgauge_under_test.ServeProcess` with a JSON getter), a headless
 Chromium driven by selenium (:func:`start_browser`), and screenshots and console logs kept
 under ``target/artifacts/``.
 
@@ -11,21 +12,12 @@ from __future__ import annotations
 import base64
 import json
 import os
-import signal
-import socket
-import subprocess
-import time
 from pathlib import Path
 
 import pytest
-import requests
 
-REPO_ROOT = Path(__file__).resolve().parent.parent.parent
-DEFAULT_BINARY = REPO_ROOT / "target" / "release" / "mixgauge"
-BUILD_HINT = (
-    f"build it with `cd {REPO_ROOT} && cargo build --release -p mixgauge-cli`, "
-    "or point MIXGAUGE_BIN at an existing binary"
-)
+from mixgauge_under_test import REPO_ROOT, ServeProcess
+
 #: Screenshots and console logs of the last run; kept whether the tests pass or fail.
 ARTIFACTS = REPO_ROOT / "target" / "artifacts"
 
@@ -36,87 +28,17 @@ BROWSER_HINT = (
     "(or set CHROMIUM_BIN and CHROMEDRIVER_BIN to a matching pair)"
 )
 
-#: Seconds the server may take to answer /readyz after it is started.
-READY_TIMEOUT = 30
 #: Seconds one HTTP call from the test may take.
 HTTP_TIMEOUT = 30
 #: Browser window size: fixed, so screenshots of two runs are comparable.
 WINDOW = (1280, 1600)
 
 
-def binary_path() -> Path:
-    return Path(os.environ.get("MIXGAUGE_BIN") or DEFAULT_BINARY)
-
-
-def free_port() -> int:
-    """A loopback port nobody listens on right now (the server binds it a moment later)."""
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
-class Server:
-    """One `mixgauge serve` process over a fresh data folder."""
+class Server(ServeProcess):
+    """One `mixgauge serve` process over a fresh data folder, with ``workers`` workers."""
 
     def __init__(self, binary: Path, data_dir: Path, log_path: Path, workers: int):
-        self.binary = binary
-        self.data_dir = data_dir
-        self.log_path = log_path
-        self.workers = workers
-        self.proc: subprocess.Popen | None = None
-        self.port: int | None = None
-        self.http = requests.Session()
-
-    @property
-    def base(self) -> str:
-        return f"http://127.0.0.1:{self.port}"
-
-    def url(self, path: str) -> str:
-        return self.base + path
-
-    def start(self) -> "Server":
-        last_error = None
-        for _attempt in range(3):  # another process may grab the free port first
-            self.port = free_port()
-            cmd = [
-                str(self.binary), "serve",
-                "--listen", f"127.0.0.1:{self.port}",
-                "--data-dir", str(self.data_dir),
-                "--workers", str(self.workers),
-            ]
-            with open(self.log_path, "ab") as log:
-                self.proc = subprocess.Popen(cmd, stdout=log, stderr=subprocess.STDOUT)
-            deadline = time.monotonic() + READY_TIMEOUT
-            while time.monotonic() < deadline:
-                if self.proc.poll() is not None:
-                    last_error = f"server exited with {self.proc.returncode}:\n{self.log()}"
-                    break
-                try:
-                    r = self.http.get(self.url("/readyz"), timeout=2)
-                    if r.status_code == 200 and r.json() == {"status": "ready"}:
-                        return self
-                except requests.ConnectionError:
-                    pass
-                time.sleep(0.05)
-            else:
-                self.stop()
-                pytest.fail(f"server not ready within {READY_TIMEOUT} s:\n{self.log()}", pytrace=False)
-        pytest.fail(f"server did not start: {last_error}", pytrace=False)
-
-    def log(self) -> str:
-        if not self.log_path.exists():
-            return ""
-        return self.log_path.read_text(errors="replace")[-4000:]
-
-    def stop(self) -> None:
-        if self.proc is not None and self.proc.poll() is None:
-            self.proc.send_signal(signal.SIGTERM)
-            try:
-                self.proc.wait(timeout=15)
-            except subprocess.TimeoutExpired:
-                self.proc.kill()
-                self.proc.wait(timeout=15)
-        self.http.close()
+        super().__init__(binary, data_dir, log_path, ["--workers", str(workers)])
 
     def get_json(self, path: str) -> dict:
         r = self.http.get(self.url(path), timeout=HTTP_TIMEOUT)

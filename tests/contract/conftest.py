@@ -1,49 +1,24 @@
 """Fixtures of the contract tests (python -m pytest tests/contract).
 
 ``service`` is one server for the whole session, seeded so that every route that takes an id
-has a real one to hit: a dataset uploaded as CSV and a sweep over it that has succeeded. A
-missing binary fails the tests that need it; nothing is skipped.
+has a real one to hit: a dataset uploaded as CSV and a sweep over it that has succeeded. The
+binary is found by ``tests/mixgauge_under_test.py`` (shared by the Python suites); a missing
+binary fails the tests that need it; nothing is skipped.
 """
 
 from __future__ import annotations
 
-import os
-import subprocess
+import sys
 from dataclasses import dataclass
 from pathlib import Path
 
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
+
 import pytest
 
-from contract_support import (
-    BUILD_HINT,
-    SCRATCH_CSV,
-    SEED_CSV,
-    SEED_SETTINGS,
-    Server,
-    binary_path,
-)
-
-
-def pytest_report_header(config):
-    path = binary_path()
-    if not path.is_file():
-        return f"mixgauge binary: {path} (MISSING)"
-    try:
-        version = subprocess.run([str(path), "--version"], capture_output=True, text=True,
-                                 timeout=30).stdout.strip()
-    except OSError as e:  # reported again, as a failure, by the fixture
-        version = f"not runnable: {e}"
-    return f"mixgauge binary: {path} ({version})"
-
-
-@pytest.fixture(scope="session")
-def mixgauge_binary() -> Path:
-    path = binary_path()
-    if not path.is_file():
-        pytest.fail(f"mixgauge binary not found at {path}: {BUILD_HINT}", pytrace=False)
-    if not os.access(path, os.X_OK):
-        pytest.fail(f"mixgauge binary at {path} is not executable: {BUILD_HINT}", pytrace=False)
-    return path
+from contract_support import SCRATCH_CSV, SEED_CSV, SEED_SETTINGS, Server
+# The session fixture `mixgauge_binary` and the report header line, shared by the suites.
+from mixgauge_under_test import mixgauge_binary, pytest_report_header  # noqa: F401
 
 
 @dataclass
@@ -59,7 +34,7 @@ class Seeded:
 
     @property
     def url(self) -> str:
-        return self.server.url
+        return self.server.base
 
 
 @pytest.fixture(scope="session")

@@ -2,27 +2,23 @@
 
 The server is the real binary (``$MIXGAUGE_BIN``, else ``<repo>/target/release/mixgauge``),
 started with ``serve`` on a free loopback port and a fresh data folder, and stopped by its own
-process id. Its environment has no ``MIXGAUGE_*`` variable of the caller's, so a developer's
-settings cannot change what is tested.
+process id (the shared :class:`mixgauge_under_test.ServeProcess`). Its environment has no
+``MIXGAUGE_*`` variable of the caller's, so a developer's settings cannot change what is tested.
 """
 
 from __future__ import annotations
 
 import os
-import signal
-import socket
-import subprocess
 import time
-from dataclasses import dataclass, field
 from pathlib import Path
 
 import requests
 
-REPO_ROOT = Path(__file__).resolve().parents[2]
+from mixgauge_under_test import REPO_ROOT, ServeProcess
+
 SPEC_DIR = REPO_ROOT / "api-spec"
 SPEC_PATH = SPEC_DIR / "openapi.yaml"
 SERVICE_SRC = REPO_ROOT / "crates" / "mixgauge-service" / "src"
-BUILD_HINT = "build it with `cargo build --release -p mixgauge-cli` or set MIXGAUGE_BIN"
 
 #: Limits the contract server runs with: small, so a generated request cannot make it work long.
 SERVER_ARGS = [
@@ -33,17 +29,6 @@ SERVER_ARGS = [
     "--max-candidates", "4",
     "--request-timeout", "30",
 ]
-
-
-def binary_path() -> Path:
-    given = os.environ.get("MIXGAUGE_BIN")
-    return Path(given) if given else REPO_ROOT / "target" / "release" / "mixgauge"
-
-
-def free_port() -> int:
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 def table_csv(columns: list[str], rows: list[tuple[float, ...]]) -> bytes:
@@ -83,81 +68,34 @@ BUSY_SETTINGS = {
 }
 
 
-@dataclass
-class Server:
-    """One `mixgauge serve` process."""
+class Server(ServeProcess):
+    """One `mixgauge serve` process with :data:`SERVER_ARGS`, its environment the caller's
+    without any ``MIXGAUGE_*`` variable, plus ``extra_env``, at RUST_LOG=warn unless set."""
 
-    binary: Path
-    data_dir: Path
-    log_path: Path
-    extra_env: dict[str, str] = field(default_factory=dict)
-    port: int = 0
-    process: subprocess.Popen | None = None
-
-    @property
-    def url(self) -> str:
-        return f"http://127.0.0.1:{self.port}"
-
-    def start(self, timeout: float = 30.0) -> "Server":
+    def __init__(self, binary: Path, data_dir: Path, log_path: Path,
+                 extra_env: dict[str, str] | None = None):
         env = {k: v for k, v in os.environ.items() if not k.startswith("MIXGAUGE_")}
-        env.update(self.extra_env)
+        env.update(extra_env or {})
         env.setdefault("RUST_LOG", "warn")
-        for _attempt in range(3):
-            self.port = free_port()
-            log = open(self.log_path, "ab")
-            self.process = subprocess.Popen(
-                [str(self.binary), "serve", "--listen", f"127.0.0.1:{self.port}",
-                 "--data-dir", str(self.data_dir), *SERVER_ARGS],
-                stdout=log, stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL, env=env,
-            )
-            log.close()
-            deadline = time.monotonic() + timeout
-            while time.monotonic() < deadline:
-                if self.process.poll() is not None:
-                    break  # exited (e.g. the port was taken meanwhile): try another port
-                try:
-                    if requests.get(f"{self.url}/readyz", timeout=2).status_code == 200:
-                        return self
-                except requests.RequestException:
-                    pass
-                time.sleep(0.1)
-            self.stop()
-        raise RuntimeError(f"mixgauge serve did not become ready; its log:\n{self.log()}")
-
-    def stop(self) -> None:
-        p = self.process
-        if p is None or p.poll() is not None:
-            return
-        p.send_signal(signal.SIGTERM)
-        try:
-            p.wait(timeout=20)
-        except subprocess.TimeoutExpired:
-            p.kill()
-            p.wait(timeout=10)
-
-    def log(self) -> str:
-        try:
-            return self.log_path.read_text(errors="replace")[-4000:]
-        except OSError:
-            return "(no log)"
+        super().__init__(binary, data_dir, log_path, SERVER_ARGS, env)
 
     # ---- plain calls used to set up states (each checks its own status) ----
 
     def upload(self, body: bytes, content_type: str = "text/csv") -> dict:
-        r = requests.post(f"{self.url}/v1/datasets", data=body,
+        r = requests.post(f"{self.base}/v1/datasets", data=body,
                           headers={"Content-Type": content_type}, timeout=30)
         assert r.status_code in (200, 201), r.text
         return r.json()
 
     def create_sweep(self, dataset: str, settings: dict, key: str | None = None) -> str:
         headers = {"Idempotency-Key": key} if key else {}
-        r = requests.post(f"{self.url}/v1/sweeps", json={"dataset": dataset, "settings": settings},
+        r = requests.post(f"{self.base}/v1/sweeps", json={"dataset": dataset, "settings": settings},
                           headers=headers, timeout=30)
         assert r.status_code in (200, 202), r.text
         return r.json()["id"]
 
     def sweep(self, sweep_id: str) -> dict:
-        r = requests.get(f"{self.url}/v1/sweeps/{sweep_id}", timeout=30)
+        r = requests.get(f"{self.base}/v1/sweeps/{sweep_id}", timeout=30)
         assert r.status_code == 200, r.text
         return r.json()
 
@@ -172,4 +110,4 @@ class Server:
             time.sleep(0.1)
 
     def cancel(self, sweep_id: str) -> int:
-        return requests.post(f"{self.url}/v1/sweeps/{sweep_id}/cancel", timeout=30).status_code
+        return requests.post(f"{self.base}/v1/sweeps/{sweep_id}/cancel", timeout=30).status_code

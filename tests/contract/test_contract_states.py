@@ -220,17 +220,17 @@ def test_with_tokens_every_operation_but_the_open_ones_answers_401(start_server)
             is_open = operation.get("security") == []
             case_args = _minimal_case_args(path, method.upper())
             case = schema[path][method.upper()].Case(**case_args)
-            response = case.call_and_validate(base_url=server.url, checks=CHECKS, timeout=60)
+            response = case.call_and_validate(base_url=server.base, checks=CHECKS, timeout=60)
             if is_open:
                 assert response.status_code != 401, f"{method} {path} should be open"
             else:
                 assert response.status_code == 401, f"{method} {path}: {response.status_code}"
                 assert error_code(response) == "unauthorised"
             wrong = schema[path][method.upper()].Case(**case_args)
-            response = wrong.call_and_validate(base_url=server.url, checks=CHECKS, timeout=60,
+            response = wrong.call_and_validate(base_url=server.base, checks=CHECKS, timeout=60,
                                                headers={"Authorization": "Bearer not-" + TOKEN})
             assert (response.status_code == 401) != is_open, f"{method} {path} with a wrong token"
             checked += 1
     assert checked == 18, checked
-    r = call(server.url, "GET", "/v1/datasets", 200, headers={"Authorization": f"Bearer {TOKEN}"})
+    r = call(server.base, "GET", "/v1/datasets", 200, headers={"Authorization": f"Bearer {TOKEN}"})
     assert r.json() == {"items": [], "next": None}

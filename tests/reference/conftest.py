@@ -1,7 +1,8 @@
-"""Finding the mixgauge binary and running its CLI from the reference tests.
+"""Running the mixgauge CLI from the reference tests.
 
-The binary is ``$MIXGAUGE_BIN`` when set, else ``<repo>/target/release/mixgauge``. A missing
-binary fails every test that needs it (it is never skipped).
+The binary is ``$MIXGAUGE_BIN`` when set, else ``<repo>/target/release/mixgauge``, found by
+``tests/mixgauge_under_test.py`` (shared by the Python suites). A missing binary fails every
+test that needs it (it is never skipped).
 
 Data go to the CLI as ``.npy`` files written by ``numpy.save`` (float64, C order), so the
 engine sees exactly the values the reference libraries see. Model documents are written with
@@ -12,51 +13,21 @@ from __future__ import annotations
 
 import csv
 import json
-import os
 import subprocess
+import sys
 from dataclasses import dataclass
 from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 import numpy as np
 import pytest
 
-REPO_ROOT = Path(__file__).resolve().parent.parent.parent
-DEFAULT_BINARY = REPO_ROOT / "target" / "release" / "mixgauge"
-BUILD_HINT = (
-    f"build it with `cd {REPO_ROOT} && cargo build --release -p mixgauge-cli`, "
-    "or point MIXGAUGE_BIN at an existing binary"
-)
+# The session fixture `mixgauge_binary` and the report header line, shared by the suites.
+from mixgauge_under_test import mixgauge_binary, pytest_report_header  # noqa: F401
 
 #: Seconds a single CLI call may take before the test fails.
 CALL_TIMEOUT = 120
-
-
-def binary_path() -> Path:
-    return Path(os.environ.get("MIXGAUGE_BIN") or DEFAULT_BINARY)
-
-
-def pytest_report_header(config):
-    path = binary_path()
-    if path.is_file():
-        try:
-            version = subprocess.run(
-                [str(path), "--version"], capture_output=True, text=True, timeout=30
-            ).stdout.strip()
-        except OSError as e:  # reported again, as a failure, by the fixture
-            version = f"not runnable: {e}"
-    else:
-        version = "MISSING"
-    return f"mixgauge binary: {path} ({version})"
-
-
-@pytest.fixture(scope="session")
-def mixgauge_binary() -> Path:
-    path = binary_path()
-    if not path.is_file():
-        pytest.fail(f"mixgauge binary not found at {path}: {BUILD_HINT}", pytrace=False)
-    if not os.access(path, os.X_OK):
-        pytest.fail(f"mixgauge binary at {path} is not executable: {BUILD_HINT}", pytrace=False)
-    return path
 
 
 @dataclass

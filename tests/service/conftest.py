@@ -1,7 +1,8 @@
 """Fixtures of the service tests.
 
-The binary is ``$MIXGAUGE_BIN`` when set, else ``<repo>/target/release/mixgauge``. A missing
-binary fails every test (it is never skipped). ``server`` gives a started server on a fresh
+The binary is ``$MIXGAUGE_BIN`` when set, else ``<repo>/target/release/mixgauge``, found by
+``tests/mixgauge_under_test.py`` (shared by the Python suites). A missing binary fails every
+test (it is never skipped). ``server`` gives a started server on a fresh
 data folder and stops it afterwards; ``start_server`` starts more of them (other flags, a
 shared folder) and stops every one it started. The dataset fixtures write reference data that
 packages ship (iris with scikit-learn, Palmer penguins with `palmerpenguins`).
@@ -9,37 +10,17 @@ packages ship (iris with scikit-learn, Palmer penguins with `palmerpenguins`).
 
 from __future__ import annotations
 
-import os
-import subprocess
+import sys
 from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 import pytest
 
-from service_helpers import REPO_ROOT, BUILD_HINT, Server, binary_path
-
-
-def pytest_report_header(config):
-    path = binary_path()
-    if path.is_file():
-        try:
-            version = subprocess.run(
-                [str(path), "--version"], capture_output=True, text=True, timeout=30
-            ).stdout.strip()
-        except OSError as e:  # reported again, as a failure, by the fixture
-            version = f"not runnable: {e}"
-    else:
-        version = "MISSING"
-    return f"mixgauge binary: {path} ({version})"
-
-
-@pytest.fixture(scope="session")
-def mixgauge_binary() -> Path:
-    path = binary_path()
-    if not path.is_file():
-        pytest.fail(f"mixgauge binary not found at {path}: {BUILD_HINT}", pytrace=False)
-    if not os.access(path, os.X_OK):
-        pytest.fail(f"mixgauge binary at {path} is not executable: {BUILD_HINT}", pytrace=False)
-    return path
+# The session fixtures `mixgauge_binary` and `demo_csv` (used only where any data will do:
+# durability, load; never as a reference) and the report header line, shared by the suites.
+from mixgauge_under_test import demo_csv, mixgauge_binary, pytest_report_header  # noqa: F401
+from service_helpers import Server
 
 
 @pytest.fixture
@@ -69,10 +50,6 @@ def server(start_server) -> Server:
 
 
 # ---- datasets -----------------------------------------------------------------------------
-
-#: The demo data (invented trailer telemetry, committed with its generator `mixgauge demo`):
-#: used only where any data will do (durability, load), never as a reference.
-DEMO_CSV = REPO_ROOT / "demo-data" / "reefer-telemetry.csv"
 
 
 @pytest.fixture(scope="session")
@@ -104,13 +81,3 @@ def penguins_csv(tmp_path_factory) -> Path:
     path = tmp_path_factory.mktemp("penguins") / "penguins.csv"
     df.to_csv(path, index=False, lineterminator="\n")
     return path
-
-
-@pytest.fixture(scope="session")
-def demo_csv() -> Path:
-    if not DEMO_CSV.is_file():
-        pytest.fail(
-            f"{DEMO_CSV} is missing: regenerate it with `mixgauge demo` (see DEVELOPERS.md)",
-            pytrace=False,
-        )
-    return DEMO_CSV

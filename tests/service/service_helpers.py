@@ -2,9 +2,10 @@
 command-line twin of a sweep request (:func:`cli_sweep`), and exact comparison of result
 documents (:func:`differences`). The fixtures that use them are in conftest.py.
 
-:class:`Server` starts the service on a free loopback port over a data folder, waits until
-``GET /readyz`` answers ``ready``, and can be killed (SIGKILL), stopped (SIGTERM) and started
-again over the same folder.
+:class:`Server` is the shared :class:`mixgauge_under_test.ServeProcess` (started on a free
+loopback port over a data folder, ready once ``GET /readyz`` answers ``ready``, killed with
+SIGKILL, stopped with SIGTERM and started again over the same folder) with one log file per
+start, a timed SIGTERM (:meth:`Server.terminate`) and the API calls the tests make.
 
 Nothing here computes an expected result: expected documents come from the command-line
 ``mixgauge sweep`` run on the same file, which the service must match.
@@ -15,7 +16,6 @@ from __future__ import annotations
 import json
 import os
 import signal
-import socket
 import subprocess
 import time
 from pathlib import Path
@@ -23,15 +23,8 @@ from pathlib import Path
 import pytest
 import requests
 
-REPO_ROOT = Path(__file__).resolve().parent.parent.parent
-DEFAULT_BINARY = REPO_ROOT / "target" / "release" / "mixgauge"
-BUILD_HINT = (
-    f"build it with `cd {REPO_ROOT} && cargo build --release -p mixgauge-cli`, "
-    "or point MIXGAUGE_BIN at an existing binary"
-)
+from mixgauge_under_test import ServeProcess
 
-#: Seconds the server may take to answer /readyz after it is started.
-READY_TIMEOUT = 30
 #: Seconds one HTTP call may take.
 HTTP_TIMEOUT = 30
 #: Seconds one CLI sweep may take.
@@ -47,88 +40,21 @@ CONTENT_TYPES = {
 FINAL_STATES = {"succeeded", "failed", "cancelled"}
 
 
-def binary_path() -> Path:
-    return Path(os.environ.get("MIXGAUGE_BIN") or DEFAULT_BINARY)
-
-
-def free_port() -> int:
-    """A loopback port nobody listens on right now (the server binds it a moment later)."""
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
-class Server:
-    """One `mixgauge serve` process over ``data_dir``; restartable over the same folder."""
+class Server(ServeProcess):
+    """One `mixgauge serve` process over ``data_dir``; restartable over the same folder, each
+    start logging to its own ``server-N.log`` in ``log_dir``, at RUST_LOG=info unless the
+    caller's environment sets it."""
 
     def __init__(self, binary: Path, data_dir: Path, log_dir: Path, workers: int, args: list[str]):
-        self.binary = binary
-        self.data_dir = data_dir
+        env = dict(os.environ)
+        env.setdefault("RUST_LOG", "info")
+        super().__init__(binary, data_dir, None, ["--workers", str(workers), *args], env)
         self.log_dir = log_dir
-        self.workers = workers
-        self.args = list(args)
-        self.proc: subprocess.Popen | None = None
-        self.port: int | None = None
         self.starts = 0
-        self.log_path: Path | None = None
-        self.http = requests.Session()
 
-    @property
-    def base(self) -> str:
-        return f"http://127.0.0.1:{self.port}"
-
-    def url(self, path: str) -> str:
-        return self.base + path
-
-    def start(self) -> "Server":
-        assert self.proc is None or self.proc.poll() is not None, "server already running"
-        last_error = None
-        for _attempt in range(3):  # another process may grab the free port first
-            self.port = free_port()
-            self.starts += 1
-            self.log_path = self.log_dir / f"server-{self.starts}.log"
-            log = open(self.log_path, "wb")
-            cmd = [
-                str(self.binary), "serve",
-                "--listen", f"127.0.0.1:{self.port}",
-                "--data-dir", str(self.data_dir),
-                "--workers", str(self.workers),
-                *self.args,
-            ]
-            env = dict(os.environ)
-            env.setdefault("RUST_LOG", "info")
-            self.proc = subprocess.Popen(cmd, stdout=log, stderr=subprocess.STDOUT, env=env)
-            log.close()
-            deadline = time.monotonic() + READY_TIMEOUT
-            while time.monotonic() < deadline:
-                if self.proc.poll() is not None:
-                    last_error = f"server exited with {self.proc.returncode}:\n{self.log()}"
-                    break
-                try:
-                    r = self.http.get(self.url("/readyz"), timeout=2)
-                    if r.status_code == 200 and r.json() == {"status": "ready"}:
-                        return self
-                except requests.ConnectionError:
-                    pass
-                time.sleep(0.05)
-            else:
-                self.kill()
-                pytest.fail(f"server not ready within {READY_TIMEOUT} s:\n{self.log()}")
-        pytest.fail(f"server did not start: {last_error}")
-
-    def log(self) -> str:
-        if self.log_path is None or not self.log_path.exists():
-            return ""
-        return self.log_path.read_text(errors="replace")[-4000:]
-
-    def running(self) -> bool:
-        return self.proc is not None and self.proc.poll() is None
-
-    def kill(self) -> None:
-        """SIGKILL: no chance to clean up."""
-        if self.running():
-            self.proc.send_signal(signal.SIGKILL)
-            self.proc.wait(timeout=30)
+    def next_log_path(self) -> Path:
+        self.starts += 1
+        return self.log_dir / f"server-{self.starts}.log"
 
     def terminate(self, timeout: float) -> float:
         """SIGTERM, then wait up to ``timeout`` s; returns the seconds it took to exit
@@ -142,15 +68,6 @@ class Server:
             self.kill()
             pytest.fail(f"server did not exit within {timeout} s of SIGTERM:\n{self.log()}")
         return time.monotonic() - t0
-
-    def stop(self) -> None:
-        if self.running():
-            self.proc.send_signal(signal.SIGTERM)
-            try:
-                self.proc.wait(timeout=15)
-            except subprocess.TimeoutExpired:
-                self.kill()
-        self.http.close()
 
     # ---- API calls ----------------------------------------------------------------------
 

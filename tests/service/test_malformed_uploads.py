@@ -21,7 +21,8 @@ from pathlib import Path
 
 import pytest
 
-from service_helpers import CONTENT_TYPES, REPO_ROOT
+from mixgauge_under_test import REPO_ROOT
+from service_helpers import CONTENT_TYPES
 
 CORPUS = REPO_ROOT / "crates" / "mixgauge-data" / "tests" / "malformed"
 EXPECTED = json.loads((CORPUS / "expected.json").read_text())
