@@ -106,27 +106,26 @@ impl Metrics {
             self.sweep_micros.load(Ordering::Relaxed) as f64 / 1e6
         );
         let _ = writeln!(s, "mixgauge_sweep_duration_seconds_count {total}");
-        s.push_str("# HELP mixgauge_fits_total EM fits finished by sweeps in this process.\n");
-        s.push_str("# TYPE mixgauge_fits_total counter\n");
-        let _ = writeln!(
-            s,
-            "mixgauge_fits_total {}",
-            self.fits.load(Ordering::Relaxed)
-        );
-        s.push_str("# HELP mixgauge_upload_bytes_total Bytes of accepted dataset uploads.\n");
-        s.push_str("# TYPE mixgauge_upload_bytes_total counter\n");
-        let _ = writeln!(
-            s,
-            "mixgauge_upload_bytes_total {}",
-            self.upload_bytes.load(Ordering::Relaxed)
-        );
-        s.push_str("# HELP mixgauge_uploads_total Accepted dataset uploads.\n");
-        s.push_str("# TYPE mixgauge_uploads_total counter\n");
-        let _ = writeln!(
-            s,
-            "mixgauge_uploads_total {}",
-            self.uploads.load(Ordering::Relaxed)
-        );
+        for (name, help, value) in [
+            (
+                "mixgauge_fits_total",
+                "EM fits finished by sweeps in this process.",
+                &self.fits,
+            ),
+            (
+                "mixgauge_upload_bytes_total",
+                "Bytes of accepted dataset uploads.",
+                &self.upload_bytes,
+            ),
+            (
+                "mixgauge_uploads_total",
+                "Accepted dataset uploads.",
+                &self.uploads,
+            ),
+        ] {
+            let _ = writeln!(s, "# HELP {name} {help}\n# TYPE {name} counter");
+            let _ = writeln!(s, "{name} {}", value.load(Ordering::Relaxed));
+        }
         s.push_str("# HELP mixgauge_http_responses_total HTTP responses, by status class.\n");
         s.push_str("# TYPE mixgauge_http_responses_total counter\n");
         for (n, class) in self.responses.iter().zip(CLASSES) {
