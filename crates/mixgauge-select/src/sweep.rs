@@ -51,6 +51,10 @@ pub struct SweepOutcome {
     pub result: SweepResult,
     /// Full-data models, one per fitted candidate, in candidate order.
     pub models: Vec<(Choice, Mixture)>,
+    /// The held-out one-standard-error choice and every row's held-out log-likelihood under
+    /// it (each row scored by the fold model that did not see it, in the data's units): the
+    /// yardstick a new batch is compared with. `None` when nothing is recommended.
+    pub recommended_heldout: Option<(Choice, Vec<f64>)>,
 }
 
 #[derive(Clone, Copy, Debug)]
@@ -380,6 +384,25 @@ pub fn sweep(
         }
     }
     let (recommendations, summary) = recommend(&out, &paired);
+    let recommended_heldout = match recommendations.heldout_one_se {
+        Some(choice) => {
+            let c = out
+                .iter()
+                .position(|c| {
+                    c.covariance == choice.covariance && c.components == choice.components
+                })
+                .expect("a recommended candidate is a candidate");
+            let mut v = heldout_from_models(
+                fold_models[c].as_ref().expect("recommended implies fitted"),
+                &heldout_rows,
+                &folds,
+                n,
+            )?;
+            v.iter_mut().for_each(|x| *x += lj);
+            Some((choice, v))
+        }
+        None => None,
+    };
     Ok(SweepOutcome {
         result: SweepResult {
             format: RESULT_FORMAT.to_string(),
@@ -397,6 +420,7 @@ pub fn sweep(
             summary,
         },
         models,
+        recommended_heldout,
     })
 }
 

@@ -128,3 +128,41 @@ fn oversized_candidates_are_skipped_not_failed() {
         .unwrap();
     assert_eq!(small.status, CandidateStatus::Fitted);
 }
+
+#[test]
+fn the_recommended_heldout_rows_average_to_the_reported_heldout_mean() {
+    let truth = spaced(2, 3, CovarianceForm::Full, 5, 6.0);
+    let values = Sampler::new(9).rows(&truth, 1_203);
+    let input = SweepInput {
+        rows: Rows::new(&values, 3).unwrap(),
+        column_names: vec!["a".into(), "b".into(), "c".into()],
+        sha256: String::new(),
+        dropped_rows: 0,
+        labels: None,
+        log_jacobian: -0.75,
+        standardised: true,
+    };
+    let settings = SweepSettings {
+        components: vec![1, 2, 3],
+        covariances: vec![CovarianceForm::Full],
+        restarts: 1,
+        ..SweepSettings::default()
+    };
+    let outcome = sweep(&input, &settings, &|_| {}, &AtomicBool::new(false)).unwrap();
+    let (choice, rows) = outcome.recommended_heldout.expect("a recommendation");
+    assert_eq!(Some(choice), outcome.result.recommendations.heldout_one_se);
+    assert_eq!(rows.len(), 1_203);
+    let candidate = outcome
+        .result
+        .candidates
+        .iter()
+        .find(|c| c.covariance == choice.covariance && c.components == choice.components)
+        .unwrap();
+    let reported = candidate.heldout.unwrap().mean;
+    let mean = rows.iter().sum::<f64>() / rows.len() as f64;
+    // Same values, summed in another order: equal to rounding.
+    assert!(
+        (mean - reported).abs() <= 1e-12 * reported.abs(),
+        "{mean} vs {reported}"
+    );
+}
