@@ -26,6 +26,50 @@ pub enum Command {
     Demo(DemoArgs),
     /// Run the HTTP job service: upload datasets, queue sweeps, fetch results and reports.
     Serve(ServeArgs),
+    /// Check a new batch of rows against a reference model: exit 0 when it still fits, 1
+    /// when it does not, 2 for a usage or input error.
+    Gate(GateArgs),
+}
+
+/// Output formats of `gate`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, clap::ValueEnum)]
+pub enum GateFormat {
+    Text,
+    Json,
+    Junit,
+    Markdown,
+}
+
+#[derive(Debug, Args)]
+pub struct GateArgs {
+    /// The batch: CSV, NPY or JSON, with the reference's columns (found by name).
+    pub batch: PathBuf,
+    /// The reference: a profile written by `sweep --profile`, or a model document (then
+    /// give the rows it describes with --reference-data).
+    #[arg(long)]
+    pub reference: PathBuf,
+    /// The rows the model document describes; their in-sample scores are the yardstick
+    /// (optimistic; a sweep's held-out profile is the honest one).
+    #[arg(long)]
+    pub reference_data: Option<PathBuf>,
+    /// Drop batch rows with a missing or non-finite value instead of refusing the file.
+    #[arg(long)]
+    pub drop_incomplete: bool,
+    /// Output format.
+    #[arg(long, value_enum, default_value = "text")]
+    pub format: GateFormat,
+    /// Write the report here instead of standard output.
+    #[arg(long)]
+    pub out: Option<PathBuf>,
+    /// p-value below which the log-likelihood and outlier checks fail.
+    #[arg(long, default_value_t = 0.01)]
+    pub significance: f64,
+    /// Largest |standardised mean difference| of a column, in reference SDs.
+    #[arg(long, default_value_t = 0.2)]
+    pub mean_shift: f64,
+    /// Largest variance ratio of a column (either way).
+    #[arg(long, default_value_t = 2.0)]
+    pub variance_ratio: f64,
 }
 
 #[derive(Debug, Args)]
@@ -145,6 +189,9 @@ pub struct SweepArgs {
     /// Where to write the HTML report (self-contained; open it in any browser).
     #[arg(long)]
     pub report: Option<std::path::PathBuf>,
+    /// Where to write the reference profile of the recommended model, for `mixgauge gate`.
+    #[arg(long)]
+    pub profile: Option<std::path::PathBuf>,
 }
 
 /// Which rows and columns of the input file to use.

@@ -5,6 +5,7 @@ mod args;
 mod demo;
 mod failure;
 mod fit;
+mod gate;
 mod inputs;
 mod score;
 mod serve;
@@ -57,12 +58,24 @@ fn main() -> ExitCode {
             return ExitCode::from(code);
         }
     };
+    if let args::Command::Gate(a) = &cli.command {
+        return match gate::run(a) {
+            Ok(true) => ExitCode::SUCCESS,
+            Ok(false) => ExitCode::from(1),
+            Err(failure) => {
+                eprintln!("mixgauge: {failure}");
+                // A gate that cannot judge is a usage or input error to CI, never a pass.
+                ExitCode::from(2)
+            }
+        };
+    }
     let outcome = match cli.command {
         args::Command::Fit(a) => fit::run(&a),
         args::Command::Score(a) => score::run(&a),
         args::Command::Sweep(a) => sweep::run(&a),
         args::Command::Demo(a) => run_demo(&a),
         args::Command::Serve(a) => serve::run(a),
+        args::Command::Gate(_) => unreachable!("handled above"),
     };
     match outcome {
         Ok(()) => ExitCode::SUCCESS,

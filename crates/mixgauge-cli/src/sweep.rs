@@ -15,13 +15,14 @@ use crate::inputs;
 
 pub fn run(args: &SweepArgs) -> Result<(), Failure> {
     let mut data = inputs::labelled(&args.input, args.labels.as_deref())?;
-    let log_jacobian = if args.standardise {
+    // The rows in their own units, for the profile's column summaries.
+    let original = args.profile.is_some().then(|| data.values.clone());
+    let standardizer = args.standardise.then(|| {
         let s = Standardizer::fit(data.values.view());
         s.apply(&mut data.values);
-        s.log_jacobian()
-    } else {
-        0.0
-    };
+        s
+    });
+    let log_jacobian = standardizer.as_ref().map_or(0.0, |s| s.log_jacobian());
     let rows = inputs::rows(&data)?;
     let em = options(1, mixgauge_engine::CovarianceForm::Full, &args.em);
     let settings = SweepSettings {
@@ -78,6 +79,10 @@ pub fn run(args: &SweepArgs) -> Result<(), Failure> {
     if let Some(path) = &args.report {
         inputs::write_out(Some(path), &html_report(&outcome, &data)?)?;
     }
+    if let (Some(path), Some(values)) = (&args.profile, &original) {
+        let profile = profile(&outcome, values, &data.column_names, standardizer.as_ref())?;
+        inputs::write_out(Some(path), &(profile.to_json() + "\n"))?;
+    }
     let json = serde_json::to_string_pretty(&outcome.result).expect("a result serialises") + "\n";
     if let Some(path) = &args.out {
         inputs::write_out(Some(path), &json)?;
@@ -87,6 +92,45 @@ pub fn run(args: &SweepArgs) -> Result<(), Failure> {
     } else {
         inputs::write_out(None, &summary(&outcome.result))
     }
+}
+
+/// The profile of the recommended model, in the data's own units.
+fn profile(
+    outcome: &mixgauge_select::SweepOutcome,
+    values: &ndarray::Array2<f64>,
+    names: &[String],
+    standardizer: Option<&Standardizer>,
+) -> Result<mixgauge_gate::Profile, Failure> {
+    let Some((choice, heldout)) = &outcome.recommended_heldout else {
+        return Err(Failure::Other(
+            "no candidate could be compared on held-out rows, so there is no profile to write"
+                .into(),
+        ));
+    };
+    let model = &outcome
+        .models
+        .iter()
+        .find(|(c, _)| c == choice)
+        .expect("the recommended candidate was fitted")
+        .1;
+    let model = match standardizer {
+        Some(s) => model.in_original_units(&s.means, &s.scales)?,
+        None => model.clone(),
+    };
+    let mut document = mixgauge_engine::ModelDocument::from_mixture(&model);
+    document.column_names = Some(names.to_vec());
+    let slice = values
+        .as_slice()
+        .ok_or_else(|| Failure::Other("dataset values are not contiguous".into()))?;
+    let rows = mixgauge_engine::Rows::new(slice, values.ncols())?;
+    mixgauge_gate::Profile::from_heldout(
+        document,
+        Some("heldout_one_se".into()),
+        heldout,
+        &rows,
+        names,
+    )
+    .map_err(|e| Failure::Other(e.to_string()))
 }
 
 /// The HTML report, with the 2-D view of the recommended model.

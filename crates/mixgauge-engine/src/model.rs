@@ -249,6 +249,56 @@ impl Mixture {
         }
     }
 
+    /// This model, fitted on standardised rows `z = (x − centre) / scale`, as a model of `x`:
+    /// means map to `centre + scale·μ`, covariances to `S Σ S` with `S = diag(scale)`. The
+    /// density of `x` is the density of `z` times the Jacobian `∏ 1/scale`, so per-row
+    /// log-likelihoods agree with the standardised fit's plus its log-Jacobian.
+    ///
+    /// # Errors
+    /// [`Error::Dimensions`] when `centres` or `scales` do not have one entry per column;
+    /// [`Error::Model`] when a scaled covariance is not positive definite.
+    pub fn in_original_units(&self, centres: &[f64], scales: &[f64]) -> Result<Mixture, Error> {
+        let (k, d) = (self.components(), self.dims());
+        if centres.len() != d || scales.len() != d {
+            return Err(Error::Dimensions {
+                model: d,
+                data: if centres.len() == d {
+                    scales.len()
+                } else {
+                    centres.len()
+                },
+            });
+        }
+        let mut means = Vec::with_capacity(k * d);
+        let mut covariances = Vec::new();
+        for c in 0..k {
+            means.extend(
+                self.mean(c)
+                    .iter()
+                    .zip(centres.iter().zip(scales))
+                    .map(|(m, (centre, scale))| centre + scale * m),
+            );
+            match self.form() {
+                CovarianceForm::Full => {
+                    let cov = self.covariance(c);
+                    for i in 0..d {
+                        for j in 0..d {
+                            // s_i·s_j first, so entries (i, j) and (j, i) stay equal.
+                            covariances.push(cov[i * d + j] * (scales[i] * scales[j]));
+                        }
+                    }
+                }
+                CovarianceForm::Diagonal => covariances.extend(
+                    self.variances(c)
+                        .iter()
+                        .zip(scales)
+                        .map(|(v, scale)| v * (scale * scale)),
+                ),
+            }
+        }
+        Mixture::new(self.form(), self.weights().to_vec(), means, covariances)
+    }
+
     /// Free parameters of this model (see [`CovarianceForm::free_parameters`]).
     pub fn free_parameters(&self) -> usize {
         self.form.free_parameters(self.components, self.dims)

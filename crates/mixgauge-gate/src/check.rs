@@ -8,12 +8,14 @@
 //!   against the 1 % expected, by an exact one-sided binomial test.
 //! - **Column shift:** per column, the standardised mean difference (batch mean − reference
 //!   mean over the reference SD) and the variance ratio; the columns that moved most come
-//!   first. Its limits are effect sizes, not p-values: with thousands of rows every shift is
-//!   "significant", and the question is whether it is large.
+//!   first. A column fails when its move is both large (beyond the effect-size limits: with
+//!   thousands of rows every shift is "significant", and the question is whether it matters)
+//!   and more than sampling noise explains (a two-sided z-test at the significance level,
+//!   Bonferroni-corrected over the columns: small batches move by chance).
 
 use mixgauge_engine::Rows;
 use serde::{Deserialize, Serialize};
-use statrs::distribution::{Binomial, ContinuousCDF, DiscreteCDF, StudentsT};
+use statrs::distribution::{Binomial, ContinuousCDF, DiscreteCDF, Normal, StudentsT};
 
 use crate::GateError;
 use crate::profile::{Profile, mean_sd, score};
@@ -28,11 +30,13 @@ pub const REPORT_FORMAT: &str = "mixgauge.gate/1";
 pub struct Limits {
     /// A p-value below this fails the log-likelihood and outlier checks.
     pub significance: f64,
-    /// A column whose |standardised mean difference| exceeds this fails (0.2: Cohen's
-    /// "small" effect, Cohen 1988 — a common-practice threshold, from memory).
+    /// A column whose |standardised mean difference| exceeds this fails, unless sampling
+    /// noise explains it (0.2: Cohen's "small" effect, Cohen 1988 — a common-practice
+    /// threshold, from memory).
     pub mean_shift: f64,
-    /// A column whose variance ratio (batch over reference) leaves [1/x, x] fails (2: the
-    /// common-practice balance limit of Rubin 2001, from memory).
+    /// A column whose variance ratio (batch over reference) leaves [1/x, x] fails, unless
+    /// sampling noise explains it (2: the common-practice balance limit of Rubin 2001, from
+    /// memory).
     pub variance_ratio: f64,
 }
 
@@ -241,6 +245,11 @@ fn outlier_check(profile: &Profile, scores: &[f64], limits: &Limits) -> Result<C
 }
 
 fn column_check(profile: &Profile, batch: &Rows, limits: &Limits) -> Check {
+    let (nb, nr) = (batch.len() as f64, profile.loglik.rows as f64);
+    let d = profile.columns.len() as f64;
+    let z_limit = Normal::new(0.0, 1.0)
+        .expect("the standard normal")
+        .inverse_cdf(1.0 - limits.significance / (2.0 * d));
     let mut columns: Vec<ColumnShift> = profile
         .columns
         .iter()
@@ -251,14 +260,24 @@ fn column_check(profile: &Profile, batch: &Rows, limits: &Limits) -> Check {
             let reference_sd = if c.sd > 0.0 { c.sd } else { f64::MIN_POSITIVE };
             let mean_shift = (mean - c.mean) / reference_sd;
             let variance_ratio = (sd * sd) / (reference_sd * reference_sd);
-            let ok = mean_shift.abs() <= limits.mean_shift
-                && variance_ratio <= limits.variance_ratio
-                && variance_ratio >= 1.0 / limits.variance_ratio;
+            // Sampling noise: the SE of a standardised mean difference of two samples with
+            // about equal spread, and of the log of a variance ratio with the batch's own
+            // kurtosis (Var ln s² ≈ (κ − (n − 3)/(n − 1))/n; normal data give 2/(n − 1)).
+            let mean_se = (1.0 / nb + 1.0 / nr).sqrt();
+            let kurtosis = kurtosis(&values, mean, sd);
+            let log_var =
+                |n: f64| ((kurtosis - (n - 3.0) / (n - 1.0)) / n).max(2.0 / (n - 1.0) / 4.0);
+            let ratio_se = (log_var(nb) + log_var(nr)).sqrt();
+            let mean_moved =
+                mean_shift.abs() > limits.mean_shift && mean_shift.abs() > z_limit * mean_se;
+            let log_ratio = variance_ratio.ln().abs();
+            let spread_moved =
+                log_ratio > limits.variance_ratio.ln() && log_ratio > z_limit * ratio_se;
             ColumnShift {
                 name: c.name.clone(),
                 mean_shift,
                 variance_ratio,
-                verdict: verdict(ok),
+                verdict: verdict(!(mean_moved || spread_moved)),
             }
         })
         .collect();
@@ -282,7 +301,7 @@ fn column_check(profile: &Profile, batch: &Rows, limits: &Limits) -> Check {
         p_value: None,
         effect: largest,
         limit: format!(
-            "|mean shift| ≤ {} SD and variance ratio within [{:.2}, {}]",
+            "|mean shift| ≤ {} SD and variance ratio within [{:.2}, {}], unless sampling noise explains the move (z ≤ {z_limit:.2})",
             limits.mean_shift,
             1.0 / limits.variance_ratio,
             limits.variance_ratio
@@ -304,4 +323,13 @@ fn column_check(profile: &Profile, batch: &Rows, limits: &Limits) -> Check {
         },
         columns,
     }
+}
+
+/// Sample kurtosis m₄ / m₂² of `v` (3 for normal data).
+fn kurtosis(v: &[f64], mean: f64, sd: f64) -> f64 {
+    if sd <= 0.0 {
+        return 3.0;
+    }
+    let m4 = v.iter().map(|x| ((x - mean) / sd).powi(4)).sum::<f64>() / v.len() as f64;
+    m4.max(1.0)
 }

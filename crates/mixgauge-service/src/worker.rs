@@ -14,7 +14,7 @@ use std::time::Duration;
 use std::time::Instant;
 
 use mixgauge_data::{Format, Standardizer};
-use mixgauge_engine::{CovarianceForm, Mixture, ModelDocument, Rows};
+use mixgauge_engine::{Mixture, ModelDocument, Rows};
 use mixgauge_select::{Progress, SelectError, SweepInput, SweepSettings, sweep};
 use tokio::sync::watch;
 use tokio::task::JoinHandle;
@@ -307,42 +307,9 @@ fn run_sweep(
     }
 }
 
-/// `model` fitted on standardised rows `z = (x − mean) / scale`, as a model of `x`: means map
-/// to `mean + scale·μ`, covariances to `S Σ S` with `S = diag(scale)`. The density of `x` is
-/// then the density of `z` times the Jacobian, so scores agree with the result document's.
+/// `model` fitted on standardised rows, as a model of the data in its own units.
 fn to_data_units(model: &Mixture, s: &Standardizer) -> Result<Mixture, mixgauge_engine::Error> {
-    let k = model.components();
-    let d = model.dims();
-    let mut means = Vec::with_capacity(k * d);
-    let mut covariances = Vec::new();
-    for c in 0..k {
-        means.extend(
-            model
-                .mean(c)
-                .iter()
-                .zip(s.means.iter().zip(&s.scales))
-                .map(|(m, (centre, scale))| centre + scale * m),
-        );
-        match model.form() {
-            CovarianceForm::Full => {
-                let cov = model.covariance(c);
-                for i in 0..d {
-                    for j in 0..d {
-                        // s_i·s_j is computed first, so entry (i, j) and (j, i) stay equal.
-                        covariances.push(cov[i * d + j] * (s.scales[i] * s.scales[j]));
-                    }
-                }
-            }
-            CovarianceForm::Diagonal => covariances.extend(
-                model
-                    .variances(c)
-                    .iter()
-                    .zip(&s.scales)
-                    .map(|(v, scale)| v * (scale * scale)),
-            ),
-        }
-    }
-    Mixture::new(model.form(), model.weights().to_vec(), means, covariances)
+    model.in_original_units(&s.means, &s.scales)
 }
 
 #[cfg(test)]
