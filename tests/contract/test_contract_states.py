@@ -231,6 +231,6 @@ def test_with_tokens_every_operation_but_the_open_ones_answers_401(start_server)
                                                headers={"Authorization": "Bearer not-" + TOKEN})
             assert (response.status_code == 401) != is_open, f"{method} {path} with a wrong token"
             checked += 1
-    assert checked == 18, checked
+    assert checked == 20, checked
     r = call(server.base, "GET", "/v1/datasets", 200, headers={"Authorization": f"Bearer {TOKEN}"})
     assert r.json() == {"items": [], "next": None}

@@ -76,7 +76,8 @@ pub(crate) async fn time_and_count(
     let takes_data = req.method() == Method::POST
         && (req.uri().path() == "/v1/datasets"
             || req.uri().path() == "/v1/sweeps"
-            || req.uri().path().ends_with("/score"));
+            || req.uri().path().ends_with("/score")
+            || req.uri().path().ends_with("/gate"));
     let limit = if takes_data {
         UPLOAD_TIMEOUT.max(state.limits.request_timeout)
     } else {

@@ -72,6 +72,11 @@ pub fn router(state: AppState) -> Router {
             "/v1/sweeps/{id}/score",
             post(crate::results::score).layer(DefaultBodyLimit::disable()),
         )
+        .route("/v1/sweeps/{id}/profile", get(crate::gates::profile))
+        .route(
+            "/v1/sweeps/{id}/gate",
+            post(crate::gates::gate).layer(DefaultBodyLimit::disable()),
+        )
         .merge(crate::page::routes())
         .fallback(no_route)
         .method_not_allowed_fallback(wrong_method)
@@ -676,6 +681,8 @@ fn sweep_json(job: &SweepJob, full: bool) -> Result<Value, AppError> {
             "report": format!("/v1/sweeps/{}/report", sweep_id(job.id)),
             "models": format!("/v1/sweeps/{}/models/{{covariance}}/{{components}}", sweep_id(job.id)),
             "score": format!("/v1/sweeps/{}/score", sweep_id(job.id)),
+            "profile": format!("/v1/sweeps/{}/profile", sweep_id(job.id)),
+            "gate": format!("/v1/sweeps/{}/gate", sweep_id(job.id)),
         },
     });
     if full {

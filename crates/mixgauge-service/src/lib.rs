@@ -14,6 +14,7 @@
 #![deny(missing_docs)]
 
 mod error;
+mod gates;
 mod guard;
 mod http;
 mod intake;

@@ -297,14 +297,62 @@ fn run_sweep(
             document: doc.to_json(),
         });
     }
+    let profile = match profile(&outcome, &prepared) {
+        Ok(p) => p,
+        Err(e) => return Finish::Failed(format!("the reference profile could not be built: {e}")),
+    };
     match serde_json::to_string(&outcome.result) {
         Ok(result) => Finish::Succeeded {
             report,
             result,
             models,
+            profile,
         },
         Err(e) => Finish::Failed(format!("the result could not be written: {e}")),
     }
+}
+
+/// The reference profile of the recommended model, in the data's units (as the CLI's
+/// `sweep --profile` writes it); `None` when nothing is recommended.
+fn profile(
+    outcome: &mixgauge_select::SweepOutcome,
+    prepared: &crate::options::Prepared,
+) -> Result<Option<String>, String> {
+    let Some((choice, heldout)) = &outcome.recommended_heldout else {
+        return Ok(None);
+    };
+    let Some((_, model)) = outcome.models.iter().find(|(c, _)| c == choice) else {
+        return Err("the recommended model is missing".into());
+    };
+    let data = &prepared.data;
+    // Column summaries need the rows in their own units: undo the standardisation on a copy.
+    let mut values = data.values.clone();
+    let model = match &prepared.standardizer {
+        Some(s) => {
+            for mut row in values.rows_mut() {
+                for (j, v) in row.iter_mut().enumerate() {
+                    *v = s.means[j] + s.scales[j] * *v;
+                }
+            }
+            to_data_units(model, s).map_err(|e| e.to_string())?
+        }
+        None => model.clone(),
+    };
+    let slice = values
+        .as_slice()
+        .ok_or("dataset values are not contiguous")?;
+    let rows = Rows::new(slice, values.ncols()).map_err(|e| e.to_string())?;
+    let mut document = ModelDocument::from_mixture(&model);
+    document.column_names = Some(data.column_names.clone());
+    mixgauge_gate::Profile::from_heldout(
+        document,
+        Some("heldout_one_se".into()),
+        heldout,
+        &rows,
+        &data.column_names,
+    )
+    .map(|p| Some(p.to_json()))
+    .map_err(|e| e.to_string())
 }
 
 /// `model` fitted on standardised rows, as a model of the data in its own units.

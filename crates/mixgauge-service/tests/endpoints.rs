@@ -471,3 +471,53 @@ async fn a_file_with_gaps_is_stored_and_sweeps_only_when_dropping_them() {
         "{v}"
     );
 }
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_gate_passes_the_reference_rows_and_fails_shifted_ones() {
+    let (_dir, state) = fresh();
+    let pool = WorkerPool::start(&state, 1).await.unwrap();
+    let app = router(state.clone());
+    let (id, done) = finished_sweep(&app).await;
+    let (status, profile) = send_json(&app, get(&format!("/v1/sweeps/{id}/profile"))).await;
+    assert_eq!(status, StatusCode::OK, "{profile}");
+    assert_eq!(profile["format"], "mixgauge.profile/1");
+    assert_eq!(
+        profile["model"]["components"],
+        done["result"]["recommendations"]["heldout_one_se"]["components"]
+    );
+    let gate = |query: &str, csv: String| {
+        Request::post(format!("/v1/sweeps/{id}/gate{query}"))
+            .header(header::CONTENT_TYPE, "text/csv")
+            .body(Body::from(csv))
+            .unwrap()
+    };
+    // The reference rows themselves: they fit at least as well as held-out rows do.
+    let (status, body, headers) = send(&app, gate("", two_groups_csv())).await;
+    assert_eq!(status, StatusCode::OK);
+    assert_eq!(headers["mixgauge-verdict"], "pass");
+    let report: Value = serde_json::from_slice(&body).unwrap();
+    assert_eq!(report["verdict"], "pass", "{report}");
+    // Every width moved by 5: a client's batch that does not fit is still a 200, verdict fail.
+    let mut shifted = String::from("width,height\n");
+    for line in two_groups_csv().lines().skip(1) {
+        let (w, h) = line.split_once(',').unwrap();
+        shifted.push_str(&format!("{},{h}\n", w.parse::<f64>().unwrap() + 5.0));
+    }
+    let (status, body, headers) = send(&app, gate("?format=junit", shifted)).await;
+    assert_eq!(status, StatusCode::OK);
+    assert_eq!(headers["mixgauge-verdict"], "fail");
+    assert_eq!(headers[header::CONTENT_TYPE], "application/xml");
+    let xml = String::from_utf8(body).unwrap();
+    assert_eq!(xml.matches("<testcase ").count(), 3, "{xml}");
+    assert!(xml.contains("<failure "), "{xml}");
+    // Client mistakes are 4xx.
+    let (status, v) = send_json(&app, gate("?format=pdf", two_groups_csv())).await;
+    assert_eq!(status, StatusCode::BAD_REQUEST, "{v}");
+    let (status, v) = send_json(&app, gate("", "depth\n1\n2\n".into())).await;
+    assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY, "{v}");
+    assert!(
+        v["error"]["message"].as_str().unwrap().contains("width"),
+        "{v}"
+    );
+    pool.stop(&state, Duration::from_secs(5)).await;
+}

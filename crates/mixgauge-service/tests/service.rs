@@ -313,10 +313,10 @@ async fn a_job_left_running_is_requeued_and_finished_after_a_restart() {
 async fn the_store_claims_each_job_once_and_only_finishes_running_ones() {
     let dir = tempfile::tempdir().unwrap();
     let store = SqliteStore::open(dir.path()).unwrap();
-    assert_eq!(store.schema_version().await.unwrap(), 2);
+    assert_eq!(store.schema_version().await.unwrap(), 3);
     // Reopening applies no migration twice.
     let store = SqliteStore::open(dir.path()).unwrap();
-    assert_eq!(store.schema_version().await.unwrap(), 2);
+    assert_eq!(store.schema_version().await.unwrap(), 3);
     let new = |key: Option<&str>| NewSweep {
         dataset: "ds-x".into(),
         settings: "{}".into(),

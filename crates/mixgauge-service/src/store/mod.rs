@@ -173,6 +173,8 @@ pub enum Finish {
         report: String,
         /// One model document per fitted candidate.
         models: Vec<StoredModel>,
+        /// The reference profile of the recommended model, as JSON, when there is one.
+        profile: Option<String>,
     },
     /// With an error message.
     Failed(String),
@@ -247,6 +249,8 @@ pub trait Store: Send + Sync {
     async fn request_cancel(&self, id: i64) -> Result<Option<JobState>, StoreError>;
     /// The HTML report of a succeeded job.
     async fn report(&self, id: i64) -> Result<Option<String>, StoreError>;
+    /// The reference profile of a succeeded job's recommended model, for gates.
+    async fn profile(&self, id: i64) -> Result<Option<String>, StoreError>;
     /// The model document of one candidate of a succeeded job.
     async fn model(
         &self,

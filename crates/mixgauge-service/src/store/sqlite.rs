@@ -63,6 +63,9 @@ CREATE TABLE models (
     PRIMARY KEY (sweep, covariance, components)
 );
 "#,
+    r#"
+ALTER TABLE sweeps ADD COLUMN profile TEXT;
+"#,
 ];
 
 const JOB_COLUMNS: &str = "id, dataset, settings, state, done, total, result, error, requeues, created, updated, cancel_requested, data, finished";
@@ -448,21 +451,29 @@ impl Store for SqliteStore {
 
     async fn finish(&self, id: i64, how: Finish) -> Result<bool, StoreError> {
         self.call(move |c| {
-            let (state, result, report, error, models) = match how {
+            let (state, result, report, error, models, profile) = match how {
                 Finish::Succeeded {
                     result,
                     report,
                     models,
-                } => ("succeeded", Some(result), Some(report), None, models),
-                Finish::Failed(e) => ("failed", None, None, Some(e), Vec::new()),
-                Finish::Cancelled => ("cancelled", None, None, None, Vec::new()),
+                    profile,
+                } => (
+                    "succeeded",
+                    Some(result),
+                    Some(report),
+                    None,
+                    models,
+                    profile,
+                ),
+                Finish::Failed(e) => ("failed", None, None, Some(e), Vec::new(), None),
+                Finish::Cancelled => ("cancelled", None, None, None, Vec::new(), None),
             };
             // The result, the report and the models land together or not at all.
             let tx = c.transaction()?;
             let n = tx.execute(
-                "UPDATE sweeps SET state = ?2, result = ?3, report = ?4, error = ?5, updated = ?6
-                 WHERE id = ?1 AND state = 'running'",
-                params![id, state, result, report, error, now_ms()],
+                "UPDATE sweeps SET state = ?2, result = ?3, report = ?4, error = ?5, updated = ?6,
+                 profile = ?7 WHERE id = ?1 AND state = 'running'",
+                params![id, state, result, report, error, now_ms(), profile],
             )?;
             if n != 1 {
                 return Ok(false);
@@ -508,6 +519,19 @@ impl Store for SqliteStore {
                 .optional()?
                 .flatten(),
             )
+        })
+        .await
+    }
+
+    async fn profile(&self, id: i64) -> Result<Option<String>, StoreError> {
+        self.call(move |c| {
+            Ok(c.query_row(
+                "SELECT profile FROM sweeps WHERE id = ?1 AND state = 'succeeded'",
+                [id],
+                |r| r.get::<_, Option<String>>(0),
+            )
+            .optional()?
+            .flatten())
         })
         .await
     }
