@@ -45,9 +45,16 @@ pub struct GateArgs {
     /// The batch: CSV, NPY or JSON, with the reference's columns (found by name).
     pub batch: PathBuf,
     /// The reference: a profile written by `sweep --profile`, or a model document (then
-    /// give the rows it describes with --reference-data).
+    /// give the rows it describes with --reference-data); with --server, a sweep id (sw-3).
     #[arg(long)]
     pub reference: PathBuf,
+    /// Check against a sweep on this mixgauge service (e.g. http://127.0.0.1:8080) instead of
+    /// a local file.
+    #[arg(long, env = "MIXGAUGE_SERVER")]
+    pub server: Option<String>,
+    /// Bearer token for --server.
+    #[arg(long, env = "MIXGAUGE_TOKEN", hide_env_values = true)]
+    pub token: Option<String>,
     /// The rows the model document describes; their in-sample scores are the yardstick
     /// (optimistic; a sweep's held-out profile is the honest one).
     #[arg(long)]

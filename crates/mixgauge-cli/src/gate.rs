@@ -10,6 +10,9 @@ use crate::inputs;
 
 /// Runs the gate; `Ok(true)` when the batch passes.
 pub fn run(a: &GateArgs) -> Result<bool, Failure> {
+    if let Some(server) = &a.server {
+        return run_remote(a, server);
+    }
     let profile = reference(a)?;
     let names: Vec<String> = profile.columns.iter().map(|c| c.name.clone()).collect();
     let options = ReadOptions::default()
@@ -89,6 +92,84 @@ fn reference(a: &GateArgs) -> Result<Profile, Failure> {
             "{} is neither a profile ({PROFILE_FORMAT}) nor a model document ({}); write one with `mixgauge sweep --profile` or `mixgauge fit --out`",
             path.display(),
             mixgauge_engine::MODEL_FORMAT
+        ))),
+    }
+}
+
+/// The gate run by a mixgauge service against sweep `a.reference`; `Ok(true)` on pass.
+pub fn run_remote(a: &GateArgs, server: &str) -> Result<bool, Failure> {
+    let sweep = a.reference.to_string_lossy();
+    if !sweep.starts_with("sw-") {
+        return Err(Failure::Input(format!(
+            "with --server, --reference is a sweep id such as sw-3, not {sweep:?}"
+        )));
+    }
+    if a.reference_data.is_some() || a.drop_incomplete {
+        return Err(Failure::Input(
+            "--reference-data and --drop-incomplete apply to local references only".into(),
+        ));
+    }
+    let bytes = std::fs::read(&a.batch).map_err(|e| io("read", &a.batch, e))?;
+    let kind = match a.batch.extension().and_then(|e| e.to_str()) {
+        Some("json") => "application/json",
+        Some("npy") => "application/x-npy",
+        _ => "text/csv",
+    };
+    let format = match a.format {
+        GateFormat::Text => "text",
+        GateFormat::Json => "json",
+        GateFormat::Junit => "junit",
+        GateFormat::Markdown => "markdown",
+    };
+    let url = format!(
+        "{}/v1/sweeps/{sweep}/gate?format={format}&significance={}&mean_shift={}&variance_ratio={}",
+        server.trim_end_matches('/'),
+        a.significance,
+        a.mean_shift,
+        a.variance_ratio
+    );
+    let agent: ureq::Agent = ureq::Agent::config_builder()
+        .http_status_as_error(false)
+        .build()
+        .into();
+    let mut request = agent.post(&url).header("Content-Type", kind);
+    if let Some(t) = &a.token {
+        request = request.header("Authorization", &format!("Bearer {t}"));
+    }
+    let mut response = request
+        .send(&bytes[..])
+        .map_err(|e| Failure::Input(format!("cannot reach {server}: {e}")))?;
+    let status = response.status();
+    let verdict = response
+        .headers()
+        .get("mixgauge-verdict")
+        .and_then(|v| v.to_str().ok())
+        .map(String::from);
+    let body = response
+        .body_mut()
+        .with_config()
+        .limit(64 * 1024 * 1024)
+        .read_to_string()
+        .map_err(|e| {
+            Failure::Input(format!(
+                "{server} answered {status} with an unreadable body: {e}"
+            ))
+        })?;
+    if !status.is_success() {
+        let message = serde_json::from_str::<serde_json::Value>(&body)
+            .ok()
+            .and_then(|v| v["error"]["message"].as_str().map(String::from))
+            .unwrap_or(body);
+        return Err(Failure::Input(format!(
+            "{server} answered {status}: {message}"
+        )));
+    }
+    inputs::write_out(a.out.as_deref(), &body)?;
+    match verdict.as_deref() {
+        Some("pass") => Ok(true),
+        Some("fail") => Ok(false),
+        _ => Err(Failure::Input(format!(
+            "{server} gave no verdict; is it a mixgauge service?"
         ))),
     }
 }
