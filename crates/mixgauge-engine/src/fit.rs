@@ -368,11 +368,13 @@ fn run(
         ridge,
         moments,
     };
+    let tiled = Tiled::new(rows);
     let mut model = match &options.start {
         Start::Model(m) => m.clone(),
         Start::Seeded => {
             let mut rng = init::stream(options.seed, restart, 0);
-            let (stats, centres) = init::seeded(rows, k, form, options.lloyd_steps, &mut rng);
+            let (stats, centres) =
+                init::seeded(rows, &tiled, k, form, options.lloyd_steps, &mut rng);
             update(&ctx, None, &stats, &centres, &mut state, 0)?
         }
         Start::RandomResponsibilities => {
@@ -382,7 +384,6 @@ fn run(
         }
     };
     let n = rows.len() as f64;
-    let tiled = Tiled::new(rows);
     let mut trace = Vec::new();
     let mut previous = f64::NEG_INFINITY;
     let mut fresh = true;
