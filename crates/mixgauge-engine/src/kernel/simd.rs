@@ -243,12 +243,15 @@ fn diagonal_group<S: Simd, const A: usize>(
         let g = g0 + a;
         (g / S::UNITS, g % S::UNITS)
     };
+    let columns: [&[Lanes]; A] = std::array::from_fn(|a| {
+        let t = place(a).0;
+        &tiles[t * d..(t + 1) * d]
+    });
     let mut sq = [s.splat(0.0); A];
     for j in 0..d {
         let (m, p) = (s.splat(mean[j]), s.splat(precision[j]));
         for a in 0..A {
-            let (t, u) = place(a);
-            let c = s.sub(s.load(&tiles[t * d + j], u), m);
+            let c = s.sub(s.load(&columns[a][j], place(a).1), m);
             sq[a] = s.mul_add(s.mul(c, p), c, sq[a]);
         }
     }
@@ -460,20 +463,11 @@ fn accumulate_full<S: Simd, const MI: usize, const MJ: usize>(
     for i0 in (0..dp).step_by(MI) {
         let end = (i0 + MI).min(d);
         for j0 in (0..end).step_by(MJ) {
-            let mut acc = [[zero; MJ]; MI];
-            for a in 0..active {
-                let wrow = &w.weighted[a * dp + i0..a * dp + i0 + MI];
-                let crow = &w.centred[a * dp + j0..a * dp + j0 + MJ];
-                for u in 0..S::UNITS {
-                    let wv: [S::V; MI] = std::array::from_fn(|r| s.load(&wrow[r], u));
-                    for q in 0..MJ {
-                        let cv = s.load(&crow[q], u);
-                        for r in 0..MI {
-                            acc[r][q] = s.mul_add(wv[r], cv, acc[r][q]);
-                        }
-                    }
-                }
-            }
+            let acc = if MI == MJ && j0 == i0 {
+                second_block::<S, MI, MJ, true>(s, &w.weighted, &w.centred, dp, active, i0, j0)
+            } else {
+                second_block::<S, MI, MJ, false>(s, &w.weighted, &w.centred, dp, active, i0, j0)
+            };
             for r in 0..MI {
                 for q in 0..MJ {
                     let (i, j) = (i0 + r, j0 + q);
@@ -484,6 +478,38 @@ fn accumulate_full<S: Simd, const MI: usize, const MJ: usize>(
             }
         }
     }
+}
+
+/// Σ over the active tiles of r(xᵢ−cᵢ)·(xⱼ−cⱼ) for i in `i0..i0+MI`, j in `j0..j0+MJ`, in
+/// registers. On a block across the diagonal (`TRIANGLE`: i0 = j0, MI = MJ) only the entries
+/// with j ≤ i are computed; the others stay zero.
+#[inline(always)]
+fn second_block<S: Simd, const MI: usize, const MJ: usize, const TRIANGLE: bool>(
+    s: S,
+    weighted: &[Lanes],
+    centred: &[Lanes],
+    dp: usize,
+    active: usize,
+    i0: usize,
+    j0: usize,
+) -> [[S::V; MJ]; MI] {
+    let mut acc = [[s.splat(0.0); MJ]; MI];
+    for a in 0..active {
+        let wrow = &weighted[a * dp + i0..a * dp + i0 + MI];
+        let crow = &centred[a * dp + j0..a * dp + j0 + MJ];
+        for u in 0..S::UNITS {
+            let wv: [S::V; MI] = std::array::from_fn(|r| s.load(&wrow[r], u));
+            for q in 0..MJ {
+                let cv = s.load(&crow[q], u);
+                for r in 0..MI {
+                    if !TRIANGLE || q <= r {
+                        acc[r][q] = s.mul_add(wv[r], cv, acc[r][q]);
+                    }
+                }
+            }
+        }
+    }
+    acc
 }
 
 /// Σr(x−c) and Σr(x−c)² of columns `j0..j0+G` over the active tiles.
