@@ -203,13 +203,30 @@ fn full_group<S: Simd, const A: usize>(
         let strip = &strips[offset..offset + STRIP * end];
         offset += STRIP * end;
         let mut z = [[s.splat(0.0); A]; STRIP];
-        for (j, w) in strip.chunks_exact(STRIP).enumerate() {
+        let i0 = q * STRIP;
+        // Columns left of the strip's diagonal block: all four rows.
+        for (j, w) in strip[..STRIP * i0].chunks_exact(STRIP).enumerate() {
             let b: [S::V; STRIP] = std::array::from_fn(|r| s.splat(w[r]));
             for a in 0..A {
                 let (t, u) = place(a);
                 let c = s.load(&centred[(t - tile0) * d + j], u);
                 for r in 0..STRIP {
                     z[r][a] = s.mul_add(b[r], c, z[r][a]);
+                }
+            }
+        }
+        // The diagonal block: column i0 + jj reaches rows jj.. only (W is lower triangular).
+        for jj in 0..STRIP {
+            let j = i0 + jj;
+            if j >= end {
+                break;
+            }
+            let w = &strip[STRIP * j..STRIP * j + STRIP];
+            for a in 0..A {
+                let (t, u) = place(a);
+                let c = s.load(&centred[(t - tile0) * d + j], u);
+                for r in jj..STRIP {
+                    z[r][a] = s.mul_add(s.splat(w[r]), c, z[r][a]);
                 }
             }
         }
