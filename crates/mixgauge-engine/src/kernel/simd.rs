@@ -244,7 +244,7 @@ fn full_group<S: Simd, const A: usize>(
 }
 
 /// Diagonal-covariance log-densities of units `g0..g0+A` into `out[tile]`.
-#[allow(clippy::too_many_arguments)]
+#[allow(clippy::too_many_arguments)] // inputs and scratch buffers passed apart, to borrow them separately
 #[inline(always)]
 fn diagonal_group<S: Simd, const A: usize>(
     s: S,
@@ -280,7 +280,7 @@ fn diagonal_group<S: Simd, const A: usize>(
 }
 
 /// Every component's log-density for every row of the block, into `logp[c·TILES + t]`.
-#[allow(clippy::too_many_arguments)]
+#[allow(clippy::too_many_arguments)] // inputs and scratch buffers passed apart, to borrow them separately
 #[inline(always)]
 fn log_densities<S: Simd, const FULL: usize, const DIAGONAL: usize>(
     s: S,
@@ -415,7 +415,7 @@ fn normalise<S: Simd>(
 
 /// Full-covariance statistics of component `c` over the block: Σr into `weight`, Σr(x−c)
 /// into `first` (D), Σr(x−c)(x−c)ᵀ packed into `second`.
-#[allow(clippy::too_many_arguments)]
+#[allow(clippy::too_many_arguments)] // inputs and scratch buffers passed apart, to borrow them separately
 #[inline(always)]
 fn accumulate_full<S: Simd, const MI: usize, const MJ: usize>(
     s: S,
@@ -530,7 +530,7 @@ fn second_block<S: Simd, const MI: usize, const MJ: usize, const TRIANGLE: bool>
 }
 
 /// Σr(x−c) and Σr(x−c)² of columns `j0..j0+G` over the active tiles.
-#[allow(clippy::too_many_arguments)]
+#[allow(clippy::too_many_arguments)] // inputs and scratch buffers passed apart, to borrow them separately
 #[inline(always)]
 fn diagonal_columns<S: Simd, const G: usize>(
     s: S,
@@ -566,7 +566,7 @@ fn diagonal_columns<S: Simd, const G: usize>(
 }
 
 /// Diagonal-covariance statistics of one component over the block.
-#[allow(clippy::too_many_arguments)]
+#[allow(clippy::too_many_arguments)] // inputs and scratch buffers passed apart, to borrow them separately
 #[inline(always)]
 fn accumulate_diagonal<S: Simd, const G: usize>(
     s: S,
