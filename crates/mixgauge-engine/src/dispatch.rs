@@ -1,127 +1,161 @@
-//! Chooses, once per process, which compiled variant of the block kernels runs.
+//! Chooses, once per process, which instruction-set path of the block kernels runs.
 //!
-//! The kernels are written once in portable Rust ([`crate::kernel`]) and inlined into
-//! variants compiled with wider vector instruction sets enabled. No variant uses fused
-//! multiply-add (Rust never contracts `a * b + c`), and every sum runs in the same order, so
-//! all variants compute the same IEEE operations and return bit-identical results; the wider
-//! ones are only faster. `MIXGAUGE_KERNEL=portable` forces the portable variant (for tests and
-//! benchmarks); otherwise AVX2 runs wherever the CPU has it.
+//! Paths, best first: `avx512` (AVX-512F), `avx2` (AVX2 with FMA), `portable` (plain Rust, the
+//! reference; every CPU). Detection uses `std::arch`'s `is_x86_feature_detected!`, so one binary
+//! built for the x86-64 baseline runs the widest path the CPU has; no `-C target-cpu` is needed.
+//! A path is represented by a token that only detection can create ([`crate::kernel::avx512`],
+//! [`crate::kernel::avx2`]), so holding one proves the instructions exist.
 //!
-//! (Enabling AVX-512 the same way was measured slower than AVX2 on this code: left to the
-//! compiler, 8-lane tiles do not map well onto 512-bit registers. Explicit kernels per
-//! instruction set are the next step.)
+//! `MIXGAUGE_KERNEL=portable|avx2|avx512` (read once, at the first pass) asks for a path, for
+//! tests and benchmarks; `auto` or unset takes the best. A path the CPU lacks, or an unknown
+//! name, falls back to the best available path with a one-line note on standard error, and
+//! [`kernel_variant`] names the path actually used. Results agree across paths to rounding
+//! (the vector paths use fused multiply-add), and are bit-identical across thread counts for
+//! any one path.
 
 use std::sync::OnceLock;
 use std::sync::atomic::{AtomicU8, Ordering};
 
-use crate::kernel::{PassStats, fit_block_body, score_block_body};
-use crate::model::Mixture;
-use crate::rows::Rows;
+#[cfg(target_arch = "x86_64")]
+use crate::kernel::{avx2::Avx2, avx512::Avx512};
 
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-enum Variant {
+/// The path a pass runs, carrying the proof that the CPU supports it.
+#[derive(Clone, Copy, Debug)]
+pub(crate) enum Variant {
     Portable,
     #[cfg(target_arch = "x86_64")]
-    Avx2,
+    Avx2(Avx2),
+    #[cfg(target_arch = "x86_64")]
+    Avx512(Avx512),
 }
 
-static FORCED: AtomicU8 = AtomicU8::new(0);
-
-fn variant() -> Variant {
-    static CHOSEN: OnceLock<Variant> = OnceLock::new();
-    if FORCED.load(Ordering::Relaxed) == 1 {
-        return Variant::Portable;
+impl Variant {
+    fn name(self) -> &'static str {
+        match self {
+            Variant::Portable => "portable",
+            #[cfg(target_arch = "x86_64")]
+            Variant::Avx2(_) => "avx2",
+            #[cfg(target_arch = "x86_64")]
+            Variant::Avx512(_) => "avx512",
+        }
     }
-    *CHOSEN.get_or_init(|| {
-        let wanted = std::env::var("MIXGAUGE_KERNEL").unwrap_or_default();
+}
+
+const KNOWN: [&str; 3] = ["avx512", "avx2", "portable"];
+
+/// The paths of [`KNOWN`], each present if this CPU can run it (detected once).
+fn table() -> &'static [Option<Variant>; 3] {
+    static TABLE: OnceLock<[Option<Variant>; 3]> = OnceLock::new();
+    TABLE.get_or_init(|| {
         #[cfg(target_arch = "x86_64")]
         {
-            if wanted != "portable" && std::is_x86_feature_detected!("avx2") {
-                return Variant::Avx2;
-            }
+            [
+                Avx512::detect().map(Variant::Avx512),
+                Avx2::detect().map(Variant::Avx2),
+                Some(Variant::Portable),
+            ]
         }
-        let _ = wanted;
-        Variant::Portable
+        #[cfg(not(target_arch = "x86_64"))]
+        {
+            [None, None, Some(Variant::Portable)]
+        }
     })
 }
 
-/// Forces (or releases) the portable kernels for the rest of the process. All variants give
-/// bit-identical results, so this changes only speed; tests use it to prove exactly that.
-#[doc(hidden)]
-pub fn force_portable_kernels(on: bool) {
-    FORCED.store(u8::from(on), Ordering::Relaxed);
+/// Every path this CPU can run, best first.
+fn available() -> impl Iterator<Item = Variant> {
+    table().iter().flatten().copied()
 }
 
-/// The name of the kernel variant in use ("portable" or "avx2"), for logs and benchmarks.
+/// The path named `name`, if it is known and this CPU has it.
+fn named(name: &str) -> Option<Variant> {
+    let i = KNOWN.iter().position(|k| *k == name)?;
+    table()[i]
+}
+
+/// Index into [`KNOWN`] plus one of the path forced by [`force_kernel_variant`]; 0: none.
+static FORCED: AtomicU8 = AtomicU8::new(0);
+
+pub(crate) fn variant() -> Variant {
+    let forced = FORCED.load(Ordering::Relaxed);
+    if forced > 0
+        && let Some(v) = table()[usize::from(forced) - 1]
+    {
+        return v;
+    }
+    static CHOSEN: OnceLock<Variant> = OnceLock::new();
+    *CHOSEN.get_or_init(|| {
+        let best = available()
+            .next()
+            .expect("the portable path is always available");
+        let wanted = std::env::var("MIXGAUGE_KERNEL").unwrap_or_default();
+        let wanted = wanted.trim();
+        if wanted.is_empty() || wanted == "auto" {
+            return best;
+        }
+        match named(wanted) {
+            Some(v) => v,
+            None => {
+                let why = if KNOWN.contains(&wanted) {
+                    "this CPU lacks its instructions"
+                } else {
+                    "the known paths are auto, avx512, avx2 and portable"
+                };
+                eprintln!(
+                    "mixgauge: MIXGAUGE_KERNEL={wanted} is not available ({why}); using {}",
+                    best.name()
+                );
+                best
+            }
+        }
+    })
+}
+
+/// The name of the kernel path in use ("avx512", "avx2" or "portable"), for logs and
+/// benchmarks.
 pub fn kernel_variant() -> &'static str {
-    match variant() {
-        Variant::Portable => "portable",
-        #[cfg(target_arch = "x86_64")]
-        Variant::Avx2 => "avx2",
-    }
+    variant().name()
 }
 
-pub(crate) fn fit_block(
-    model: &Mixture,
-    rows: &Rows,
-    block: usize,
-    centres: &[f64],
-    accumulate: bool,
-) -> PassStats {
-    match variant() {
-        Variant::Portable => fit_block_body(model, rows, block, centres, accumulate),
-        #[cfg(target_arch = "x86_64")]
-        // SAFETY: `variant()` returns Avx2 only when the CPU reports AVX2.
-        Variant::Avx2 => unsafe { x86::fit_block_avx2(model, rows, block, centres, accumulate) },
-    }
+/// The kernel paths this CPU can run, best first (always ends with "portable").
+pub fn kernel_variants() -> Vec<&'static str> {
+    available().map(Variant::name).collect()
 }
 
-pub(crate) fn score_block(
-    model: &Mixture,
-    rows: &Rows,
-    block: usize,
-    loglik: &mut [f64],
-    resp: Option<&mut [f64]>,
-) -> usize {
-    match variant() {
-        Variant::Portable => score_block_body(model, rows, block, loglik, resp),
-        #[cfg(target_arch = "x86_64")]
-        // SAFETY: `variant()` returns Avx2 only when the CPU reports AVX2.
-        Variant::Avx2 => unsafe { x86::score_block_avx2(model, rows, block, loglik, resp) },
-    }
-}
-
-#[cfg(target_arch = "x86_64")]
-mod x86 {
-    use super::*;
-
-    #[target_feature(enable = "avx2")]
-    pub(super) fn fit_block_avx2(
-        model: &Mixture,
-        rows: &Rows,
-        block: usize,
-        centres: &[f64],
-        accumulate: bool,
-    ) -> PassStats {
-        fit_block_body(model, rows, block, centres, accumulate)
-    }
-
-    #[target_feature(enable = "avx2")]
-    pub(super) fn score_block_avx2(
-        model: &Mixture,
-        rows: &Rows,
-        block: usize,
-        loglik: &mut [f64],
-        resp: Option<&mut [f64]>,
-    ) -> usize {
-        score_block_body(model, rows, block, loglik, resp)
-    }
+/// Forces a kernel path for the rest of the process (`None` releases it), overriding
+/// `MIXGAUGE_KERNEL`. For tests and benchmarks that compare paths in one process; the setting
+/// is global, so callers that depend on it must not run concurrently with each other.
+///
+/// # Errors
+/// The path is unknown or this CPU lacks it; the setting is then unchanged.
+#[doc(hidden)]
+pub fn force_kernel_variant(name: Option<&str>) -> Result<(), String> {
+    let code = match name {
+        None => 0,
+        Some(n) => {
+            let i = KNOWN
+                .iter()
+                .position(|k| *k == n)
+                .ok_or_else(|| format!("unknown kernel path {n:?}; use one of {KNOWN:?}"))?;
+            if table()[i].is_none() {
+                return Err(format!("this CPU cannot run the {n} kernel path"));
+            }
+            i as u8 + 1
+        }
+    };
+    FORCED.store(code, Ordering::Relaxed);
+    Ok(())
 }
 
 #[cfg(test)]
 mod tests {
+    use super::*;
+
     #[test]
-    fn a_variant_is_chosen() {
-        assert!(["portable", "avx2"].contains(&super::kernel_variant()));
+    fn the_portable_path_is_always_available_and_last() {
+        let all = kernel_variants();
+        assert_eq!(all.last(), Some(&"portable"));
+        assert!(all.contains(&kernel_variant()));
+        assert!(force_kernel_variant(Some("sse9")).is_err());
     }
 }

@@ -13,7 +13,7 @@ use serde::{Deserialize, Serialize};
 use crate::Error;
 use crate::form::CovarianceForm;
 use crate::init;
-use crate::kernel::{BLOCK_ROWS, PassStats, block_count, fit_block, score_block};
+use crate::kernel::{BLOCK_ROWS, PassStats, Tiled, block_count, fit_block, score_block};
 use crate::linalg::packed;
 use crate::model::Mixture;
 use crate::rows::Rows;
@@ -342,11 +342,11 @@ struct Run {
 
 /// One pass over all rows: log-likelihood of `model` and, if `accumulate`, the statistics
 /// around the model's means.
-fn pass(rows: &Rows, model: &Mixture, accumulate: bool) -> PassStats {
+fn pass(tiled: &Tiled, model: &Mixture, accumulate: bool) -> PassStats {
     let centres = model.means();
     reduce_blocks(
-        block_count(rows.len()),
-        &|b| fit_block(model, rows, b, centres, accumulate),
+        block_count(tiled.len()),
+        &|b| fit_block(model, tiled, b, centres, accumulate),
         &PassStats::merge,
     )
 }
@@ -368,11 +368,13 @@ fn run(
         ridge,
         moments,
     };
+    let tiled = Tiled::new(rows);
     let mut model = match &options.start {
         Start::Model(m) => m.clone(),
         Start::Seeded => {
             let mut rng = init::stream(options.seed, restart, 0);
-            let (stats, centres) = init::seeded(rows, k, form, options.lloyd_steps, &mut rng);
+            let (stats, centres) =
+                init::seeded(rows, &tiled, k, form, options.lloyd_steps, &mut rng);
             update(&ctx, None, &stats, &centres, &mut state, 0)?
         }
         Start::RandomResponsibilities => {
@@ -392,7 +394,7 @@ fn run(
             return Err(Error::Cancelled);
         }
         let accumulate = iterations < options.max_iterations;
-        let stats = pass(rows, &model, accumulate);
+        let stats = pass(&tiled, &model, accumulate);
         if stats.lost_rows > 0 {
             return Err(Error::Model(format!(
                 "{} rows underflow every component after {iterations} EM steps; raise the ridge or standardise the data",

@@ -39,8 +39,8 @@ mod stats;
 
 pub use criteria::{aic, bic, icl};
 #[doc(hidden)]
-pub use dispatch::force_portable_kernels;
-pub use dispatch::kernel_variant;
+pub use dispatch::force_kernel_variant;
+pub use dispatch::{kernel_variant, kernel_variants};
 pub use document::{FitRecord, MODEL_FORMAT, ModelDocument};
 pub use error::Error;
 pub use fit::{

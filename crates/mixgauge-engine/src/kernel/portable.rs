@@ -1,81 +1,17 @@
-//! The fused E+M pass over one block of rows, and the scoring pass.
+//! The portable path: the fused pass in plain Rust over 8-lane arrays, the readable reference
+//! the vector paths are checked against.
 //!
-//! Rows are gathered once per block into tiles of [`LANES`] rows laid out column by column
-//! (`tile[column][lane]`), so that every inner loop runs across rows and the compiler can keep
-//! one tile of a column in vector registers. The padding lanes of a short last tile repeat the
-//! block's last row and are masked out of every sum.
-//!
-//! Per block the pass (1) computes each component's log-density for every row, (2) turns the
-//! K values of each row into responsibilities with log-sum-exp (the row maximum is subtracted
-//! before `exp`, so nothing overflows), and (3) when fitting, accumulates each component's
-//! sufficient statistics around a provisional centre (its current mean): Σr, Σr(x−c) and
-//! Σr(x−c)(x−c)ᵀ. Centring avoids the cancellation of E[xxᵀ] − μμᵀ.
-//!
-//! Responsibilities below e^−600 are set to exactly zero: they cannot change any sum, and
-//! subnormal numbers are slow.
+//! Every inner loop runs across the lanes of a tile (one row per lane), so the compiler can
+//! vectorise it for the target's baseline (SSE2 on x86-64) without being told how. No fused
+//! multiply-add: each `a * b + c` rounds twice, exactly as written.
 
 use std::cell::RefCell;
 
+use super::{BLOCK_ROWS, Block, LANES, Lanes, PassStats, TILES, gather, resize};
 use crate::form::CovarianceForm;
 use crate::linalg::packed;
 use crate::model::Mixture;
 use crate::rows::Rows;
-
-/// Rows per vector tile.
-pub(crate) const LANES: usize = 8;
-/// Rows per block: the unit of parallel work and of the fixed reduction tree.
-pub(crate) const BLOCK_ROWS: usize = 256;
-const TILES: usize = BLOCK_ROWS / LANES;
-
-type Lanes = [f64; LANES];
-
-/// Sufficient statistics of one pass over some rows.
-#[derive(Clone, Debug)]
-pub(crate) struct PassStats {
-    /// Σ over rows of the row's log-density under the current model.
-    pub loglik: f64,
-    /// Rows whose log-density is not representable (−∞ for every component).
-    pub lost_rows: usize,
-    /// Σr per component.
-    pub weight: Vec<f64>,
-    /// Σr(x−c) per component, K×D.
-    pub first: Vec<f64>,
-    /// Σr(x−c)(x−c)ᵀ per component, K×packed (lower triangle for full, diagonal otherwise).
-    pub second: Vec<f64>,
-}
-
-impl PassStats {
-    fn zeros(k: usize, d: usize, p: usize, accumulate: bool) -> Self {
-        let (kw, kd, kp) = if accumulate {
-            (k, k * d, k * p)
-        } else {
-            (0, 0, 0)
-        };
-        PassStats {
-            loglik: 0.0,
-            lost_rows: 0,
-            weight: vec![0.0; kw],
-            first: vec![0.0; kd],
-            second: vec![0.0; kp],
-        }
-    }
-
-    /// Adds `other` into `self`; the caller fixes the order, so sums are reproducible.
-    pub fn merge(mut self, other: PassStats) -> PassStats {
-        self.loglik += other.loglik;
-        self.lost_rows += other.lost_rows;
-        for (a, b) in self.weight.iter_mut().zip(&other.weight) {
-            *a += b;
-        }
-        for (a, b) in self.first.iter_mut().zip(&other.first) {
-            *a += b;
-        }
-        for (a, b) in self.second.iter_mut().zip(&other.second) {
-            *a += b;
-        }
-        self
-    }
-}
 
 /// Working memory for one block, reused by each worker thread.
 #[derive(Default)]
@@ -94,42 +30,13 @@ thread_local! {
     static SCRATCH: RefCell<Scratch> = RefCell::new(Scratch::default());
 }
 
-/// Borrows this thread's scratch by moving it out (and back with [`put_scratch`]). The kernel
-/// body runs outside the thread-local's closure so that it is compiled with the instruction
-/// set of the variant that calls it.
+/// Borrows this thread's scratch by moving it out (and back with [`put_scratch`]).
 fn take_scratch() -> Scratch {
     SCRATCH.with(RefCell::take)
 }
 
 fn put_scratch(s: Scratch) {
     SCRATCH.with(|cell| *cell.borrow_mut() = s);
-}
-
-fn resize<T: Clone + Default>(v: &mut Vec<T>, len: usize) {
-    if v.len() < len {
-        v.resize(len, T::default());
-    }
-}
-
-/// Number of blocks that cover `rows` rows.
-pub(crate) fn block_count(rows: usize) -> usize {
-    rows.div_ceil(BLOCK_ROWS)
-}
-
-/// Rows `[start, start + count)` of the view, gathered into tiles.
-#[inline(always)]
-fn gather(rows: &Rows, start: usize, count: usize, tiles: &mut [Lanes]) {
-    let d = rows.dims();
-    let ntiles = count.div_ceil(LANES);
-    for t in 0..ntiles {
-        for lane in 0..LANES {
-            let i = start + (t * LANES + lane).min(count - 1);
-            let row = rows.row(i);
-            for (j, &v) in row.iter().enumerate() {
-                tiles[t * d + j][lane] = v;
-            }
-        }
-    }
 }
 
 /// e^x for x ≤ 0, exact to a few ulp, and 0 below −600.
@@ -274,7 +181,7 @@ fn normalise(logp: &mut [f64], k: usize, len: usize, row_max: &mut [f64], row_su
 /// Adds component `k`'s weighted moments of one block into lane accumulators.
 #[allow(clippy::too_many_arguments)] // the scratch buffers are passed apart to borrow them separately
 #[inline(always)]
-fn accumulate(
+fn accumulate_moments(
     form: CovarianceForm,
     d: usize,
     centre: &[f64],
@@ -288,7 +195,7 @@ fn accumulate(
     second: &mut [Lanes],
 ) {
     for t in 0..ntiles {
-        let r: &Lanes = resp[t * LANES..(t + 1) * LANES]
+        let r: &[f64; LANES] = resp[t * LANES..(t + 1) * LANES]
             .try_into()
             .expect("tile of responsibilities");
         if r.iter().all(|&v| v <= 0.0) {
@@ -337,37 +244,27 @@ fn accumulate(
 #[inline]
 fn lane_sum(v: &Lanes) -> f64 {
     let mut s = 0.0;
-    for &x in v {
+    for &x in v.iter() {
         s += x;
     }
     s
 }
 
-/// Gathers rows `[start, start + count)` into the scratch tiles and leaves each row's
-/// responsibilities in `s.logp` (component-major) with its log-density as
+/// Leaves each row's responsibilities in `s.logp` (component-major) with its log-density as
 /// `row_max + ln row_sum`.
-#[inline(always)]
-fn block_responsibilities(
-    model: &Mixture,
-    rows: &Rows,
-    start: usize,
-    count: usize,
-    s: &mut Scratch,
-) {
+fn block_responsibilities(model: &Mixture, tiles: &[Lanes], count: usize, s: &mut Scratch) {
     let k = model.components();
     let d = model.dims();
     let ntiles = count.div_ceil(LANES);
-    resize(&mut s.tiles, TILES * d);
     resize(&mut s.logp, k * BLOCK_ROWS);
     resize(&mut s.centred, d);
     resize(&mut s.row_max, BLOCK_ROWS);
     resize(&mut s.row_sum, BLOCK_ROWS);
-    gather(rows, start, count, &mut s.tiles);
     for c in 0..k {
         component_logp(
             model,
             c,
-            &s.tiles,
+            tiles,
             ntiles,
             &mut s.centred,
             &mut s.logp[c * BLOCK_ROWS..],
@@ -382,24 +279,10 @@ fn block_responsibilities(
     );
 }
 
-/// One block of a fitting pass: the log-likelihood of its rows under `model`, and, when
-/// `accumulate`, the sufficient statistics around `centres` (K×D).
+/// One block of a fitting pass (see [`super::fit_block`]).
 pub(crate) fn fit_block(
     model: &Mixture,
-    rows: &Rows,
-    block: usize,
-    centres: &[f64],
-    accumulate: bool,
-) -> PassStats {
-    crate::dispatch::fit_block(model, rows, block, centres, accumulate)
-}
-
-/// The body of [`fit_block`], inlined into each instruction-set variant.
-#[inline(always)]
-pub(crate) fn fit_block_body(
-    model: &Mixture,
-    rows: &Rows,
-    block: usize,
+    block: Block,
     centres: &[f64],
     accumulate: bool,
 ) -> PassStats {
@@ -407,8 +290,7 @@ pub(crate) fn fit_block_body(
     let d = model.dims();
     let form = model.form();
     let p = form.packed_len(d);
-    let start = block * BLOCK_ROWS;
-    let count = (rows.len() - start).min(BLOCK_ROWS);
+    let count = block.count;
     let ntiles = count.div_ceil(LANES);
     let mut out = PassStats::zeros(k, d, p, accumulate);
     let mut scratch = take_scratch();
@@ -417,7 +299,7 @@ pub(crate) fn fit_block_body(
         resize(&mut s.weighted, d);
         resize(&mut s.first, d);
         resize(&mut s.second, p);
-        block_responsibilities(model, rows, start, count, s);
+        block_responsibilities(model, block.tiles, count, s);
         let padded = ntiles * LANES;
         // Mask the padding lanes out of every sum.
         for c in 0..k {
@@ -442,17 +324,21 @@ pub(crate) fn fit_block_body(
         out.loglik = loglik;
         if accumulate {
             for c in 0..k {
-                let mut weight = [0.0; LANES];
-                s.first[..d].fill([0.0; LANES]);
-                s.second[..p].fill([0.0; LANES]);
-                accumulate_component(
+                let mut weight = Lanes::default();
+                s.first[..d].fill(Lanes::default());
+                s.second[..p].fill(Lanes::default());
+                accumulate_moments(
                     form,
                     d,
                     &centres[c * d..(c + 1) * d],
-                    s,
-                    c,
+                    block.tiles,
+                    &s.logp[c * BLOCK_ROWS..(c + 1) * BLOCK_ROWS],
                     ntiles,
+                    &mut s.centred[..d],
+                    &mut s.weighted[..d],
                     &mut weight,
+                    &mut s.first[..d],
+                    &mut s.second[..p],
                 );
                 out.weight[c] = lane_sum(&weight);
                 for j in 0..d {
@@ -468,48 +354,8 @@ pub(crate) fn fit_block_body(
     out
 }
 
-#[inline(always)]
-fn accumulate_component(
-    form: CovarianceForm,
-    d: usize,
-    centre: &[f64],
-    s: &mut Scratch,
-    c: usize,
-    ntiles: usize,
-    weight: &mut Lanes,
-) {
-    let p = form.packed_len(d);
-    accumulate(
-        form,
-        d,
-        centre,
-        &s.tiles,
-        &s.logp[c * BLOCK_ROWS..(c + 1) * BLOCK_ROWS],
-        ntiles,
-        &mut s.centred[..d],
-        &mut s.weighted[..d],
-        weight,
-        &mut s.first[..d],
-        &mut s.second[..p],
-    );
-}
-
-/// One block of a scoring pass: per-row log-densities into `loglik` (one per row of the
-/// block) and, if given, responsibilities into `resp` (row-major, K per row).
-/// Returns the number of rows whose log-density is −∞ (written as −∞).
+/// One block of a scoring pass (see [`super::score_block`]).
 pub(crate) fn score_block(
-    model: &Mixture,
-    rows: &Rows,
-    block: usize,
-    loglik: &mut [f64],
-    resp: Option<&mut [f64]>,
-) -> usize {
-    crate::dispatch::score_block(model, rows, block, loglik, resp)
-}
-
-/// The body of [`score_block`], inlined into each instruction-set variant.
-#[inline(always)]
-pub(crate) fn score_block_body(
     model: &Mixture,
     rows: &Rows,
     block: usize,
@@ -520,9 +366,12 @@ pub(crate) fn score_block_body(
     let start = block * BLOCK_ROWS;
     let count = (rows.len() - start).min(BLOCK_ROWS);
     let mut scratch = take_scratch();
+    let mut tiles = std::mem::take(&mut scratch.tiles);
+    resize(&mut tiles, TILES * rows.dims());
+    gather(rows, start, count, &mut tiles);
     let lost = {
         let s = &mut scratch;
-        block_responsibilities(model, rows, start, count, s);
+        block_responsibilities(model, &tiles, count, s);
         let mut lost = 0;
         for r in 0..count {
             loglik[r] = if s.row_sum[r] > 0.0 {
@@ -541,6 +390,7 @@ pub(crate) fn score_block_body(
         }
         lost
     };
+    scratch.tiles = tiles;
     put_scratch(scratch);
     lost
 }
