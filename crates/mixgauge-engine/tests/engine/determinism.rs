@@ -1,22 +1,10 @@
 //! Same seed ⇒ bit-identical results for any thread count (on the default kernel path; every
 //! path is checked in `paths.rs`).
 
-use mixgauge_engine::{CovarianceForm, Fit, FitOptions, ModelDocument, Rows, Start, fit};
+use crate::{bits, fit_with_threads};
+use mixgauge_engine::{CovarianceForm, FitOptions, Rows, Start};
 
 use mixgauge_testkit::{Sampler, separated};
-
-fn bits(f: &Fit) -> String {
-    // The document prints every number in shortest round-trip form: equal text ⇔ equal bits.
-    ModelDocument::from_fit(f, 0).to_json()
-}
-
-fn run(threads: usize, data: &[f64], d: usize, options: &FitOptions) -> Fit {
-    let pool = rayon::ThreadPoolBuilder::new()
-        .num_threads(threads)
-        .build()
-        .unwrap();
-    pool.install(|| fit(&Rows::new(data, d).unwrap(), options).unwrap())
-}
 
 #[test]
 fn one_and_two_threads_give_the_same_bits() {
@@ -30,8 +18,8 @@ fn one_and_two_threads_give_the_same_bits() {
             options.start = start;
             options.restarts = 3;
             options.seed = 42;
-            let one = run(1, &data, 6, &options);
-            let two = run(2, &data, 6, &options);
+            let one = fit_with_threads(1, &data, 6, &options);
+            let two = fit_with_threads(2, &data, 6, &options);
             assert_eq!(bits(&one), bits(&two));
             let log_one = one
                 .model
@@ -61,5 +49,8 @@ fn different_seeds_give_independent_restarts() {
     a.max_iterations = 3;
     let mut b = a.clone();
     b.seed = 1;
-    assert_ne!(bits(&run(2, &data, 2, &a)), bits(&run(2, &data, 2, &b)));
+    assert_ne!(
+        bits(&fit_with_threads(2, &data, 2, &a)),
+        bits(&fit_with_threads(2, &data, 2, &b))
+    );
 }

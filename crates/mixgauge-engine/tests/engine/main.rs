@@ -9,6 +9,23 @@ mod textbook;
 
 use std::sync::{Mutex, MutexGuard};
 
+use mixgauge_engine::{Fit, FitOptions, ModelDocument, Rows, fit};
+
+/// A fit's parameters as text: the document prints every number in shortest round-trip form,
+/// so equal text ⇔ equal bits.
+fn bits(f: &Fit) -> String {
+    ModelDocument::from_fit(f, 0).to_json()
+}
+
+/// Fits `data` on a rayon pool of `threads` threads.
+fn fit_with_threads(threads: usize, data: &[f64], d: usize, options: &FitOptions) -> Fit {
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .unwrap();
+    pool.install(|| fit(&Rows::new(data, d).unwrap(), options).unwrap())
+}
+
 /// Held by every test that forces a kernel path or compares bits between runs: the forced
 /// path is process-wide, and tests run concurrently.
 fn kernel_lock() -> MutexGuard<'static, ()> {

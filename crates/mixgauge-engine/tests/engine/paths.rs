@@ -8,9 +8,10 @@
 //! per operation. 1e-12 leaves room for sums over thousands of rows and no more; a wrong
 //! index, a lost lane or a mishandled tail changes results at 1e-3 or worse.
 
+use crate::{bits, fit_with_threads};
 use mixgauge_engine::{
-    CovarianceForm, Fit, FitOptions, Mixture, ModelDocument, Ridge, Rows, Start, fit,
-    force_kernel_variant, kernel_variant, kernel_variants,
+    CovarianceForm, Fit, FitOptions, Mixture, Ridge, Rows, Start, fit, force_kernel_variant,
+    kernel_variant, kernel_variants,
 };
 use mixgauge_testkit::{Sampler, separated};
 
@@ -217,19 +218,6 @@ fn the_extreme_rows_are_extreme() {
     assert!(ll[4_099 / 2] < -745.0 && ll[4_099 / 3] < -745.0);
 }
 
-fn bits(f: &Fit) -> String {
-    // The document prints every number in shortest round-trip form: equal text ⇔ equal bits.
-    ModelDocument::from_fit(f, 0).to_json()
-}
-
-fn run_with_threads(threads: usize, data: &[f64], d: usize, options: &FitOptions) -> Fit {
-    let pool = rayon::ThreadPoolBuilder::new()
-        .num_threads(threads)
-        .build()
-        .unwrap();
-    pool.install(|| fit(&Rows::new(data, d).unwrap(), options).unwrap())
-}
-
 #[test]
 fn each_path_gives_the_same_bits_for_one_and_two_threads() {
     let _lock = kernel_lock();
@@ -243,8 +231,8 @@ fn each_path_gives_the_same_bits_for_one_and_two_threads() {
             options.restarts = 2;
             options.seed = 7;
             options.max_iterations = 25;
-            let one = run_with_threads(1, &data, 9, &options);
-            let two = run_with_threads(2, &data, 9, &options);
+            let one = fit_with_threads(1, &data, 9, &options);
+            let two = fit_with_threads(2, &data, 9, &options);
             assert_eq!(bits(&one), bits(&two), "path {path}, {form}");
             let rows = Rows::new(&data, 9).unwrap();
             let pool = |n| {
