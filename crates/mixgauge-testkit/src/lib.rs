@@ -82,15 +82,29 @@ pub fn spaced(k: usize, d: usize, form: CovarianceForm, seed: u64, spacing: f64)
             );
         }
     }
+    let covs = random_covariances(&mut s, form, k, d, 0.5, 1.0);
+    Mixture::new(form, weights, means, covs).expect("a valid test mixture")
+}
+
+/// `k` random covariances in `d` dimensions, row-major, drawn from `s`: full ones are
+/// `B Bᵀ/d + floor·I` with `B` standard normal (SPD, moderately correlated); diagonal ones are
+/// `floor + span·U(0, 1)` per column.
+pub fn random_covariances(
+    s: &mut Sampler,
+    form: CovarianceForm,
+    k: usize,
+    d: usize,
+    floor: f64,
+    span: f64,
+) -> Vec<f64> {
     let mut covs = Vec::new();
     for _ in 0..k {
         match form {
             CovarianceForm::Full => {
-                // A = B Bᵀ/d + 0.5 I with B random: SPD, moderately correlated.
                 let b: Vec<f64> = (0..d * d).map(|_| s.normal()).collect();
                 for i in 0..d {
                     for j in 0..d {
-                        let mut v = if i == j { 0.5 } else { 0.0 };
+                        let mut v = if i == j { floor } else { 0.0 };
                         for q in 0..d {
                             v += b[i * d + q] * b[j * d + q] / d as f64;
                         }
@@ -98,14 +112,10 @@ pub fn spaced(k: usize, d: usize, form: CovarianceForm, seed: u64, spacing: f64)
                     }
                 }
             }
-            CovarianceForm::Diagonal => {
-                for _ in 0..d {
-                    covs.push(0.5 + s.uniform());
-                }
-            }
+            CovarianceForm::Diagonal => covs.extend((0..d).map(|_| floor + span * s.uniform())),
         }
     }
-    Mixture::new(form, weights, means, covs).expect("a valid test mixture")
+    covs
 }
 
 /// Mean and standard error (sd with divisor n−1, over √n).

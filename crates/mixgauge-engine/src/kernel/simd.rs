@@ -236,10 +236,27 @@ fn full_group<S: Simd, const A: usize>(
             }
         }
     }
+    store_log_densities(s, g0, &sq, constant, out);
+}
+
+/// Writes `constant − ½·sq[a]` (a log-density from its squared Mahalanobis distance) for
+/// units `g0..g0+A` into `out[tile]`.
+#[inline(always)]
+fn store_log_densities<S: Simd, const A: usize>(
+    s: S,
+    g0: usize,
+    sq: &[S::V; A],
+    constant: f64,
+    out: &mut [Lanes],
+) {
     let (half, constant) = (s.splat(0.5), s.splat(constant));
-    for a in 0..A {
-        let (t, u) = place(a);
-        s.store(&mut out[t], u, s.neg_mul_add(half, sq[a], constant));
+    for (a, &q) in sq.iter().enumerate() {
+        let g = g0 + a;
+        s.store(
+            &mut out[g / S::UNITS],
+            g % S::UNITS,
+            s.neg_mul_add(half, q, constant),
+        );
     }
 }
 
@@ -272,11 +289,7 @@ fn diagonal_group<S: Simd, const A: usize>(
             sq[a] = s.mul_add(s.mul(c, p), c, sq[a]);
         }
     }
-    let (half, constant) = (s.splat(0.5), s.splat(constant));
-    for a in 0..A {
-        let (t, u) = place(a);
-        s.store(&mut out[t], u, s.neg_mul_add(half, sq[a], constant));
-    }
+    store_log_densities(s, g0, &sq, constant, out);
 }
 
 /// Every component's log-density for every row of the block, into `logp[c·TILES + t]`.

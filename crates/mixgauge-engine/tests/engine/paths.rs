@@ -13,7 +13,7 @@ use mixgauge_engine::{
     CovarianceForm, Fit, FitOptions, Mixture, Ridge, Rows, Start, fit, force_kernel_variant,
     kernel_variant, kernel_variants,
 };
-use mixgauge_testkit::{Sampler, separated};
+use mixgauge_testkit::{Sampler, random_covariances, separated};
 
 use crate::kernel_lock;
 
@@ -28,24 +28,7 @@ fn random_mixture(k: usize, d: usize, form: CovarianceForm, seed: u64) -> Mixtur
     let total: f64 = raw.iter().sum();
     let weights = raw.iter().map(|w| w / total).collect();
     let means = (0..k * d).map(|_| 3.0 * s.normal()).collect();
-    let mut covs = Vec::new();
-    for _ in 0..k {
-        match form {
-            CovarianceForm::Full => {
-                let b: Vec<f64> = (0..d * d).map(|_| s.normal()).collect();
-                for i in 0..d {
-                    for j in 0..d {
-                        let mut v = if i == j { 0.3 } else { 0.0 };
-                        for q in 0..d {
-                            v += b[i * d + q] * b[j * d + q] / d as f64;
-                        }
-                        covs.push(v);
-                    }
-                }
-            }
-            CovarianceForm::Diagonal => covs.extend((0..d).map(|_| 0.3 + 2.0 * s.uniform())),
-        }
-    }
+    let covs = random_covariances(&mut s, form, k, d, 0.3, 2.0);
     Mixture::new(form, weights, means, covs).expect("a valid random mixture")
 }
 
