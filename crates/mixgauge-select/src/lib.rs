@@ -37,4 +37,4 @@ pub use result::{
 };
 pub use schedule::Progress;
 pub use settings::SweepSettings;
-pub use sweep::{SweepInput, SweepOutcome, sweep};
+pub use sweep::{PlannedFit, SweepInput, SweepOutcome, SweepPlan, sweep};

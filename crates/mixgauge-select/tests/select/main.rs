@@ -166,3 +166,55 @@ fn the_recommended_heldout_rows_average_to_the_reported_heldout_mean() {
         "{mean} vs {reported}"
     );
 }
+
+/// A plan's fits run one by one in reverse order, each result saved as a model document and
+/// read back (as a worker on another machine hands it over), assemble into the byte-identical
+/// result document of an in-process sweep.
+#[test]
+fn a_plan_run_elsewhere_assembles_the_same_result() {
+    use mixgauge_engine::ModelDocument;
+    use mixgauge_select::SweepPlan;
+    let truth = spaced(3, 2, CovarianceForm::Full, 8, 7.0);
+    let values = Sampler::new(3).rows(&truth, 900);
+    let settings = SweepSettings {
+        components: vec![1, 2, 3, 4],
+        restarts: 2,
+        seed: 11,
+        ..Default::default()
+    };
+    let input = SweepInput {
+        rows: Rows::new(&values, 2).unwrap(),
+        column_names: vec!["x1".into(), "x2".into()],
+        sha256: String::new(),
+        dropped_rows: 0,
+        labels: None,
+        log_jacobian: 0.0,
+        standardised: false,
+    };
+    let local = run(&values, 2, &settings);
+    let plan = SweepPlan::new(&input, &settings).unwrap();
+    // 4 K × 2 forms × 2 restarts × (5 folds + all rows).
+    assert_eq!(plan.len(), 4 * 2 * 2 * 6);
+    assert_eq!(plan.order().len(), plan.len());
+    let mut results: Vec<Option<Result<mixgauge_engine::Fit, String>>> = vec![None; plan.len()];
+    for &t in plan.order().iter().rev() {
+        let fit = plan.fit(&input, &settings, t, &|| false);
+        let handed = fit.map_err(|e| plan.failure(t, &e)).map(|f| {
+            let text = serde_json::to_string(&ModelDocument::from_fit(&f, settings.seed)).unwrap();
+            ModelDocument::from_json(&text).unwrap().to_fit().unwrap()
+        });
+        results[t] = Some(handed);
+    }
+    let outcome = plan
+        .assemble(
+            &input,
+            &settings,
+            results.into_iter().map(Option::unwrap).collect(),
+        )
+        .unwrap();
+    assert_eq!(
+        serde_json::to_string(&local).unwrap(),
+        serde_json::to_string(&outcome.result).unwrap()
+    );
+    assert!(plan.assemble(&input, &settings, Vec::new()).is_err());
+}
