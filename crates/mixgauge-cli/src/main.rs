@@ -75,6 +75,7 @@ fn main() -> ExitCode {
         args::Command::Sweep(a) => sweep::run(&a),
         args::Command::Demo(a) => run_demo(&a),
         args::Command::Serve(a) => serve::run(a),
+        args::Command::Worker(a) => serve::work(a),
         args::Command::Gate(_) => unreachable!("handled above"),
     };
     match outcome {

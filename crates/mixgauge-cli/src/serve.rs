@@ -68,6 +68,8 @@ pub fn run(a: ServeArgs) -> Result<(), Failure> {
         listen: a.listen,
         data_dir: a.data_dir,
         workers: a.workers,
+        store: a.store,
+        blobs: a.blobs,
         limits: Limits {
             upload_bytes: a.max_upload_bytes,
             read: ReadLimits {
@@ -80,6 +82,26 @@ pub fn run(a: ServeArgs) -> Result<(), Failure> {
         tokens,
         cors_origins: a.cors_origins,
         preload,
+    })
+    .map_err(|e| Failure::Other(format!("{e:#}")))
+}
+
+/// `mixgauge worker`.
+pub fn work(a: crate::args::WorkerArgs) -> Result<(), Failure> {
+    if !(a.lease.is_finite() && a.lease >= 1.0) {
+        return Err(Failure::Other(format!(
+            "--lease {} is too short; give at least 1 second (30 is a good start)",
+            a.lease
+        )));
+    }
+    mixgauge_service::run_worker(mixgauge_service::WorkerConfig {
+        store: a.store,
+        blobs: a.blobs,
+        cache: a.cache,
+        lease: Duration::from_secs_f64(a.lease),
+        name: a.name.unwrap_or_else(mixgauge_service::worker_name),
+        health_listen: a.health_listen,
+        loops: a.loops.max(1),
     })
     .map_err(|e| Failure::Other(format!("{e:#}")))
 }

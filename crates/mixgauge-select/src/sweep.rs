@@ -346,7 +346,7 @@ impl SweepPlan {
                 });
                 train_means.push(fit.mean_loglik() + lj);
             }
-            let heldout = heldout_vector(&fits, &heldout_rows, &folds, n)?;
+            let heldout = heldout_vector(&fits, &heldout_rows, folds, n)?;
             let (hm, hs) = mean_and_stderr(&heldout);
             let (tm, ts) = mean_and_stderr(&train_means);
             cand.train = Some(MeanWithError {
@@ -424,7 +424,7 @@ impl SweepPlan {
             let best_rows = heldout_from_models(
                 fold_models[b].as_ref().expect("eligible"),
                 &heldout_rows,
-                &folds,
+                folds,
                 n,
             )?;
             for (c, cand) in out.iter().enumerate() {
@@ -438,7 +438,7 @@ impl SweepPlan {
                 let v = heldout_from_models(
                     fold_models[c].as_ref().expect("eligible"),
                     &heldout_rows,
-                    &folds,
+                    folds,
                     n,
                 )?;
                 let diff: Vec<f64> = best_rows.iter().zip(&v).map(|(x, y)| x - y).collect();
@@ -457,7 +457,7 @@ impl SweepPlan {
                 let mut v = heldout_from_models(
                     fold_models[c].as_ref().expect("recommended implies fitted"),
                     &heldout_rows,
-                    &folds,
+                    folds,
                     n,
                 )?;
                 v.iter_mut().for_each(|x| *x += lj);

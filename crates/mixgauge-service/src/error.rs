@@ -10,13 +10,19 @@ use axum::http::StatusCode;
 use axum::response::{IntoResponse, Response};
 use serde_json::{Value, json};
 
-/// A failure inside the store: the database or the dataset files.
+/// A failure inside the store: the database, the blob store or the dataset files.
 #[derive(Debug, thiserror::Error)]
 #[non_exhaustive]
 pub enum StoreError {
     /// SQLite reported an error.
     #[error("database error: {0}")]
     Sqlite(#[from] rusqlite::Error),
+    /// PostgreSQL reported an error, or no connection could be had.
+    #[error("PostgreSQL: {0}")]
+    Postgres(String),
+    /// The blob store holding dataset bytes reported an error.
+    #[error("blob store: {0}")]
+    Blobs(String),
     /// Reading or writing a dataset file, or the data directory, failed.
     #[error("{action} {path}: {source}")]
     Io {

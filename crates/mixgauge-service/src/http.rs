@@ -126,12 +126,20 @@ async fn healthz() -> Json<Value> {
 
 async fn metrics(State(state): State<AppState>) -> Result<Response, AppError> {
     let jobs = state.store.count_by_state().await?;
+    let mut text = state.metrics.render(&jobs);
+    if let Some(tasks) = state.store.task_counts().await? {
+        text.push_str("# HELP mixgauge_fit_tasks Fit tasks in the cluster store, by state.\n");
+        text.push_str("# TYPE mixgauge_fit_tasks gauge\n");
+        for (s, n) in tasks {
+            text.push_str(&format!("mixgauge_fit_tasks{{state=\"{s}\"}} {n}\n"));
+        }
+    }
     Ok((
         [(
             header::CONTENT_TYPE,
             "text/plain; version=0.0.4; charset=utf-8",
         )],
-        state.metrics.render(&jobs),
+        text,
     )
         .into_response())
 }

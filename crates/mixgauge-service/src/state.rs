@@ -10,7 +10,7 @@ use tokio::sync::Notify;
 
 use crate::metrics::Metrics;
 use crate::options::ReadLimits;
-use crate::store::Store;
+use crate::store::{LocalQueue, Store};
 
 /// What the service accepts. Every limit answers a clear 413 or 422 when crossed.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -43,6 +43,9 @@ impl Default for Limits {
 #[derive(Clone)]
 pub struct AppState {
     pub(crate) store: Arc<dyn Store>,
+    /// The whole-sweep queue, when the store has one (the embedded store); a cluster store
+    /// has none: its sweeps are split into fit tasks for `mixgauge worker` processes.
+    pub(crate) queue: Option<Arc<dyn LocalQueue>>,
     pub(crate) limits: Limits,
     pub(crate) tokens: Arc<Vec<Vec<u8>>>,
     pub(crate) cors_origins: Arc<Vec<String>>,
@@ -56,10 +59,21 @@ impl AppState {
     /// Default upload limit: 512 MiB.
     pub const DEFAULT_MAX_UPLOAD_BYTES: usize = 512 * 1024 * 1024;
 
-    /// State over `store`, with the default limits, no access tokens and no CORS.
-    pub fn new(store: Arc<dyn Store>) -> Self {
+    /// State over a store that runs sweeps whole in this process (the embedded store), with
+    /// the default limits, no access tokens and no CORS.
+    pub fn new<S: LocalQueue + 'static>(store: Arc<S>) -> Self {
+        let queue: Arc<dyn LocalQueue> = store.clone();
+        let mut state = Self::cluster(store);
+        state.queue = Some(queue);
+        state
+    }
+
+    /// State over a store whose sweeps are fitted by separate worker processes (the cluster
+    /// store): this process serves the API and runs no sweep itself.
+    pub fn cluster(store: Arc<dyn Store>) -> Self {
         AppState {
             store,
+            queue: None,
             limits: Limits::default(),
             tokens: Arc::new(Vec::new()),
             cors_origins: Arc::new(Vec::new()),
@@ -98,6 +112,11 @@ impl AppState {
     /// The store.
     pub fn store(&self) -> &Arc<dyn Store> {
         &self.store
+    }
+
+    /// The whole-sweep queue, when the store runs sweeps in this process.
+    pub fn queue(&self) -> Option<&Arc<dyn LocalQueue>> {
+        self.queue.as_ref()
     }
 
     /// Sets the cancel flag of a sweep running in this process; false if none is running.

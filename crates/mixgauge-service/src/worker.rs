@@ -44,7 +44,13 @@ impl WorkerPool {
     /// # Errors
     /// The store error if the re-queue fails.
     pub async fn start(state: &AppState, workers: usize) -> Result<Self, StoreError> {
-        let requeued = state.store.requeue_running().await?;
+        let Some(queue) = &state.queue else {
+            return Err(StoreError::Corrupt(
+                "this store has no whole-sweep queue; run `mixgauge worker` processes instead"
+                    .into(),
+            ));
+        };
+        let requeued = queue.requeue_running().await?;
         if requeued > 0 {
             tracing::warn!(
                 requeued,
@@ -89,7 +95,8 @@ async fn worker_loop(state: AppState, mut shutdown: watch::Receiver<bool>) {
         {
             return;
         }
-        match state.store.claim_next().await {
+        let Some(queue) = &state.queue else { return };
+        match queue.claim_next().await {
             Ok(Some(job)) => run_job(&state, job).await,
             Ok(None) => {
                 tokio::select! {
@@ -138,7 +145,11 @@ async fn run_job(state: &AppState, job: SweepJob) {
             .shutting_down
             .load(std::sync::atomic::Ordering::SeqCst)
     {
-        match state.store.hand_back(id).await {
+        let handed = match &state.queue {
+            Some(q) => q.hand_back(id).await,
+            None => Ok(false),
+        };
+        match handed {
             Ok(_) => tracing::info!(
                 sweep = id,
                 "sweep handed back to the queue for the next start"
@@ -186,7 +197,7 @@ async fn execute(
         .map_err(|e| StoreError::Corrupt(format!("data options of sweep {}: {e}", job.id)))?;
 
     let (progress_tx, mut progress_rx) = watch::channel(JobProgress::default());
-    let store = Arc::clone(&state.store);
+    let queue = state.queue.clone();
     let id = job.id;
     let metrics = Arc::clone(&state.metrics);
     let writer = tokio::spawn(async move {
@@ -195,7 +206,8 @@ async fn execute(
             let p = progress_rx.borrow_and_update().clone();
             metrics.fits_done(p.done.saturating_sub(recorded));
             recorded = p.done;
-            if let Err(e) = store.update_progress(id, p).await {
+            let Some(queue) = &queue else { break };
+            if let Err(e) = queue.update_progress(id, p).await {
                 tracing::warn!(sweep = id, error = %e, "cannot record progress");
             }
             tokio::time::sleep(PROGRESS_INTERVAL).await;
@@ -237,22 +249,9 @@ fn run_sweep(
         Ok(p) => p,
         Err(e) => return Finish::Failed(e.to_string()),
     };
-    let data = &prepared.data;
-    let Some(values) = data.values.as_slice() else {
-        return Finish::Failed("dataset values are not contiguous".into());
-    };
-    let rows = match Rows::new(values, data.values.ncols()) {
-        Ok(r) => r,
-        Err(e) => return Finish::Failed(e.to_string()),
-    };
-    let input = SweepInput {
-        rows,
-        column_names: data.column_names.clone(),
-        sha256: data.sha256.clone(),
-        dropped_rows: data.dropped_rows,
-        labels: data.labels.as_deref(),
-        log_jacobian: prepared.log_jacobian(),
-        standardised: options.standardise,
+    let input = match sweep_input(&prepared, options) {
+        Ok(i) => i,
+        Err(e) => return Finish::Failed(e),
     };
     let report = |p: &Progress| {
         let finished: Vec<serde_json::Value> = p
@@ -271,7 +270,43 @@ fn run_sweep(
         Err(SelectError::Cancelled) => return Finish::Cancelled,
         Err(e) => return Finish::Failed(e.to_string()),
     };
-    let report = match mixgauge_report::render_outcome(&outcome, values, data.values.ncols()) {
+    complete(&outcome, &prepared)
+}
+
+/// The rows of `prepared` as a sweep's input.
+pub(crate) fn sweep_input<'a>(
+    prepared: &'a crate::options::Prepared,
+    options: &DataOptions,
+) -> Result<SweepInput<'a>, String> {
+    let data = &prepared.data;
+    let values = data
+        .values
+        .as_slice()
+        .ok_or("dataset values are not contiguous")?;
+    let rows = Rows::new(values, data.values.ncols()).map_err(|e| e.to_string())?;
+    Ok(SweepInput {
+        rows,
+        column_names: data.column_names.clone(),
+        sha256: data.sha256.clone(),
+        dropped_rows: data.dropped_rows,
+        labels: data.labels.as_deref(),
+        log_jacobian: prepared.log_jacobian(),
+        standardised: options.standardise,
+    })
+}
+
+/// What a finished sweep stores: the result document, the report, the models in the data's
+/// own units and the reference profile. Shared by this pool and the cluster workers, so both
+/// store the same bytes for the same outcome.
+pub(crate) fn complete(
+    outcome: &mixgauge_select::SweepOutcome,
+    prepared: &crate::options::Prepared,
+) -> Finish {
+    let data = &prepared.data;
+    let Some(values) = data.values.as_slice() else {
+        return Finish::Failed("dataset values are not contiguous".into());
+    };
+    let report = match mixgauge_report::render_outcome(outcome, values, data.values.ncols()) {
         Ok(r) => r,
         Err(e) => return Finish::Failed(format!("the report could not be drawn: {e}")),
     };
@@ -297,7 +332,7 @@ fn run_sweep(
             document: doc.to_json(),
         });
     }
-    let profile = match profile(&outcome, &prepared) {
+    let profile = match profile(outcome, prepared) {
         Ok(p) => p,
         Err(e) => return Finish::Failed(format!("the reference profile could not be built: {e}")),
     };
@@ -391,7 +426,14 @@ mod tests {
         let CreateOutcome::Created(_) = state.store.create_sweep(new).await.unwrap() else {
             panic!("created")
         };
-        let job = state.store.claim_next().await.unwrap().unwrap();
+        let job = state
+            .queue
+            .as_ref()
+            .unwrap()
+            .claim_next()
+            .await
+            .unwrap()
+            .unwrap();
         (dir, state, job)
     }
 

@@ -3,7 +3,9 @@
 
 use axum::body::Body;
 use axum::http::{Request, StatusCode, header};
-use mixgauge_service::{CreateOutcome, JobState, NewSweep, SqliteStore, Store, WorkerPool, router};
+use mixgauge_service::{
+    CreateOutcome, JobState, LocalQueue, NewSweep, SqliteStore, Store, WorkerPool, router,
+};
 use serde_json::{Value, json};
 
 mod common;
@@ -282,13 +284,14 @@ async fn a_job_left_running_is_requeued_and_finished_after_a_restart() {
         let (_, created) =
             send_json(&app, post_json("/v1/sweeps", &small_sweep(&dataset), None)).await;
         let claimed = state
-            .store()
+            .queue()
+            .unwrap()
             .claim_next()
             .await
             .unwrap()
             .expect("a queued job");
         assert_eq!(claimed.state, JobState::Running);
-        assert!(state.store().claim_next().await.unwrap().is_none());
+        assert!(state.queue().unwrap().claim_next().await.unwrap().is_none());
         created["id"].as_str().unwrap().to_string()
     };
 
@@ -380,7 +383,8 @@ async fn a_cancel_asked_of_a_running_job_is_kept_across_a_restart() {
         let (_, created) =
             send_json(&app, post_json("/v1/sweeps", &small_sweep(&dataset), None)).await;
         state
-            .store()
+            .queue()
+            .unwrap()
             .claim_next()
             .await
             .unwrap()
@@ -400,7 +404,7 @@ async fn a_cancel_asked_of_a_running_job_is_kept_across_a_restart() {
     };
     // The process died before its worker saw the request: the restart must not run the job.
     let state = open(&dir);
-    assert_eq!(state.store().requeue_running().await.unwrap(), 0);
+    assert_eq!(state.queue().unwrap().requeue_running().await.unwrap(), 0);
     let app = router(state);
     let (_, v) = send_json(&app, get(&format!("/v1/sweeps/{sweep}"))).await;
     assert_eq!(v["state"], "cancelled", "{v}");

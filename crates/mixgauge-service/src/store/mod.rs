@@ -1,9 +1,14 @@
-//! The [`Store`] trait: datasets and sweep jobs, and the records it hands out.
+//! The [`Store`] trait: datasets and sweep jobs, and the records it hands out; and
+//! [`LocalQueue`], the whole-sweep queue of one process.
 //!
-//! The trait uses `async-trait` so it stays object-safe and can be injected as
+//! The traits use `async-trait` so they stay object-safe and can be injected as
 //! `Arc<dyn Store>`; the boxed future per call is negligible next to a database round trip.
-//! [`SqliteStore`] is the embedded implementation.
+//! [`SqliteStore`] is the embedded implementation of both. [`PgStore`] is the cluster store:
+//! it implements [`Store`], and instead of a whole-sweep queue it splits each sweep into fit
+//! tasks that worker processes on any host lease (see `crate::cluster`).
 
+pub(crate) mod blobs;
+pub(crate) mod postgres;
 mod sqlite;
 
 use async_trait::async_trait;
@@ -11,6 +16,8 @@ use serde::Serialize;
 
 use crate::error::StoreError;
 
+pub use blobs::Blobs;
+pub use postgres::PgStore;
 pub use sqlite::SqliteStore;
 
 /// Metadata of an uploaded dataset. The bytes live beside it, addressed by `sha256`.
@@ -238,14 +245,12 @@ pub trait Store: Send + Sync {
         limit: usize,
         after: Option<i64>,
     ) -> Result<Vec<SweepJob>, StoreError>;
-    /// Marks the oldest queued job running and returns it.
-    async fn claim_next(&self) -> Result<Option<SweepJob>, StoreError>;
-    /// Records progress of a running job.
-    async fn update_progress(&self, id: i64, progress: JobProgress) -> Result<(), StoreError>;
     /// Ends a running job. Returns false if the job was not running.
     async fn finish(&self, id: i64, how: Finish) -> Result<bool, StoreError>;
     /// Cancels a queued job at once and records the request on a running one (its worker
-    /// stops it); returns the state after, `None` if no such job. Final jobs are unchanged.
+    /// stops it; the cluster store cancels a running job at once too, and its workers stop at
+    /// their next heartbeat); returns the state after, `None` if no such job. Final jobs are
+    /// unchanged.
     async fn request_cancel(&self, id: i64) -> Result<Option<JobState>, StoreError>;
     /// The HTML report of a succeeded job.
     async fn report(&self, id: i64) -> Result<Option<String>, StoreError>;
@@ -258,11 +263,26 @@ pub trait Store: Send + Sync {
         covariance: &str,
         components: usize,
     ) -> Result<Option<String>, StoreError>;
+    /// How many jobs are in each state.
+    async fn count_by_state(&self) -> Result<Vec<(JobState, u64)>, StoreError>;
+    /// How many fit tasks are in each state (`waiting`, `leased`, `done`, `failed`), for a
+    /// store that splits sweeps into tasks; `None` for one that runs sweeps whole.
+    async fn task_counts(&self) -> Result<Option<Vec<(String, u64)>>, StoreError> {
+        Ok(None)
+    }
+}
+
+/// The whole-sweep queue of a single process (the embedded store): a worker claims a queued
+/// job, runs every fit itself and reports progress as it goes.
+#[async_trait]
+pub trait LocalQueue: Store {
+    /// Marks the oldest queued job running and returns it.
+    async fn claim_next(&self) -> Result<Option<SweepJob>, StoreError>;
+    /// Records progress of a running job.
+    async fn update_progress(&self, id: i64, progress: JobProgress) -> Result<(), StoreError>;
     /// Puts one running job back in the queue (this process is shutting down and stopped it
     /// before it finished). Returns false if the job was not running.
     async fn hand_back(&self, id: i64) -> Result<bool, StoreError>;
-    /// How many jobs are in each state.
-    async fn count_by_state(&self) -> Result<Vec<(JobState, u64)>, StoreError>;
     /// Puts every job left `running` back in the queue (after a crash) and returns how many;
     /// those with a cancel request are marked cancelled instead.
     async fn requeue_running(&self) -> Result<usize, StoreError>;

@@ -14,8 +14,8 @@ use async_trait::async_trait;
 use rusqlite::{Connection, OptionalExtension, Row, params};
 
 use super::{
-    CreateOutcome, DatasetRecord, DeleteOutcome, Finish, JobProgress, JobState, NewSweep,
-    PutOutcome, Store, SweepJob,
+    CreateOutcome, DatasetRecord, DeleteOutcome, Finish, JobProgress, JobState, LocalQueue,
+    NewSweep, PutOutcome, Store, SweepJob,
 };
 use crate::error::StoreError;
 
@@ -414,41 +414,6 @@ impl Store for SqliteStore {
         .await
     }
 
-    async fn claim_next(&self) -> Result<Option<SweepJob>, StoreError> {
-        self.call(|c| {
-            // IMMEDIATE takes the write lock up front, so two claimers never get the same row.
-            let tx = c.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
-            let id: Option<i64> = tx
-                .query_row(
-                    "SELECT id FROM sweeps WHERE state = 'queued' ORDER BY id LIMIT 1",
-                    [],
-                    |r| r.get(0),
-                )
-                .optional()?;
-            let Some(id) = id else { return Ok(None) };
-            tx.execute(
-                "UPDATE sweeps SET state = 'running', updated = ?2 WHERE id = ?1",
-                params![id, now_ms()],
-            )?;
-            let job = get_job(&tx, id)?;
-            tx.commit()?;
-            Ok(job)
-        })
-        .await
-    }
-
-    async fn update_progress(&self, id: i64, p: JobProgress) -> Result<(), StoreError> {
-        self.call(move |c| {
-            c.execute(
-                "UPDATE sweeps SET done = ?2, total = ?3, finished = ?4, updated = ?5
-                 WHERE id = ?1 AND state = 'running'",
-                params![id, p.done as i64, p.total as i64, p.finished, now_ms()],
-            )?;
-            Ok(())
-        })
-        .await
-    }
-
     async fn finish(&self, id: i64, how: Finish) -> Result<bool, StoreError> {
         self.call(move |c| {
             let (state, result, report, error, models, profile) = match how {
@@ -554,19 +519,6 @@ impl Store for SqliteStore {
         .await
     }
 
-    async fn hand_back(&self, id: i64) -> Result<bool, StoreError> {
-        self.call(move |c| {
-            let n = c.execute(
-                "UPDATE sweeps SET state = CASE WHEN cancel_requested = 1 THEN 'cancelled' ELSE 'queued' END,
-                        done = 0, finished = '[]', updated = ?2
-                 WHERE id = ?1 AND state = 'running'",
-                params![id, now_ms()],
-            )?;
-            Ok(n == 1)
-        })
-        .await
-    }
-
     async fn count_by_state(&self) -> Result<Vec<(JobState, u64)>, StoreError> {
         self.call(|c| {
             let mut stmt = c.prepare("SELECT state, COUNT(*) FROM sweeps GROUP BY state")?;
@@ -576,6 +528,57 @@ impl Store for SqliteStore {
             rows.into_iter()
                 .map(|(s, n)| Ok((JobState::parse(&s)?, n as u64)))
                 .collect()
+        })
+        .await
+    }
+}
+
+#[async_trait]
+impl LocalQueue for SqliteStore {
+    async fn claim_next(&self) -> Result<Option<SweepJob>, StoreError> {
+        self.call(|c| {
+            // IMMEDIATE takes the write lock up front, so two claimers never get the same row.
+            let tx = c.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)?;
+            let id: Option<i64> = tx
+                .query_row(
+                    "SELECT id FROM sweeps WHERE state = 'queued' ORDER BY id LIMIT 1",
+                    [],
+                    |r| r.get(0),
+                )
+                .optional()?;
+            let Some(id) = id else { return Ok(None) };
+            tx.execute(
+                "UPDATE sweeps SET state = 'running', updated = ?2 WHERE id = ?1",
+                params![id, now_ms()],
+            )?;
+            let job = get_job(&tx, id)?;
+            tx.commit()?;
+            Ok(job)
+        })
+        .await
+    }
+
+    async fn update_progress(&self, id: i64, p: JobProgress) -> Result<(), StoreError> {
+        self.call(move |c| {
+            c.execute(
+                "UPDATE sweeps SET done = ?2, total = ?3, finished = ?4, updated = ?5
+                 WHERE id = ?1 AND state = 'running'",
+                params![id, p.done as i64, p.total as i64, p.finished, now_ms()],
+            )?;
+            Ok(())
+        })
+        .await
+    }
+
+    async fn hand_back(&self, id: i64) -> Result<bool, StoreError> {
+        self.call(move |c| {
+            let n = c.execute(
+                "UPDATE sweeps SET state = CASE WHEN cancel_requested = 1 THEN 'cancelled' ELSE 'queued' END,
+                        done = 0, finished = '[]', updated = ?2
+                 WHERE id = ?1 AND state = 'running'",
+                params![id, now_ms()],
+            )?;
+            Ok(n == 1)
         })
         .await
     }
