@@ -147,7 +147,8 @@ pub struct ClusterWorkers {
 }
 
 impl ClusterWorkers {
-    /// Starts `loops` worker loops on `store`, named `name-1`, `name-2`, ….
+    /// Starts `loops` worker loops on `store`, named `name` when there is one, else
+    /// `name-1`, `name-2`, ….
     pub fn start(store: Arc<PgStore>, name: &str, loops: usize, lease: Duration) -> Self {
         let stats = Arc::new(WorkerStats::default());
         let kept = Arc::new(Mutex::new(Vec::new()));
@@ -156,7 +157,11 @@ impl ClusterWorkers {
             .map(|i| {
                 let w = Worker {
                     store: Arc::clone(&store),
-                    name: format!("{name}-{}", i + 1),
+                    name: if loops == 1 {
+                        name.to_string()
+                    } else {
+                        format!("{name}-{}", i + 1)
+                    },
                     lease,
                     limits: crate::state::Limits::default().read,
                     kept: Arc::clone(&kept),

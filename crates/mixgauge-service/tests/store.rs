@@ -37,12 +37,7 @@ async fn pg_store(name: &str) -> (tempfile::TempDir, PgStore) {
     let sep = if url.contains('?') { '&' } else { '?' };
     let scoped = format!("{url}{sep}options=-csearch_path%3D{schema}");
     let dir = tempfile::tempdir().unwrap();
-    let blobs = Blobs::open(
-        &url::Url::from_directory_path(dir.path())
-            .unwrap()
-            .to_string(),
-    )
-    .unwrap();
+    let blobs = Blobs::open(url::Url::from_directory_path(dir.path()).unwrap().as_str()).unwrap();
     let store = PgStore::connect(&scoped, blobs).await.unwrap();
     (dir, store)
 }
@@ -135,7 +130,7 @@ async fn datasets_are_stored_once_listed_and_deleted(store: &dyn Store) {
     store.put_dataset(b.clone(), b_bytes).await.unwrap();
     assert_eq!(store.get_dataset(&a.id).await.unwrap(), Some(a.clone()));
     assert_eq!(store.dataset_bytes(&a.id).await.unwrap(), Some(a_bytes));
-    let mut ids = vec![a.id.clone(), b.id.clone()];
+    let mut ids = [a.id.clone(), b.id.clone()];
     ids.sort();
     let first = store.list_datasets(1, None).await.unwrap();
     assert_eq!(first.len(), 1);
@@ -333,12 +328,7 @@ async fn postgres_migrations_are_recorded_and_reapplied_as_no_ops() {
         "{}?options=-csearch_path%3Dstore_test_migrations",
         postgres_url()
     );
-    let blobs = Blobs::open(
-        &url::Url::from_directory_path(dir.path())
-            .unwrap()
-            .to_string(),
-    )
-    .unwrap();
+    let blobs = Blobs::open(url::Url::from_directory_path(dir.path()).unwrap().as_str()).unwrap();
     let second = PgStore::connect(&url, blobs).await.unwrap();
     assert_eq!(second.schema_version().await.unwrap(), version);
     assert_eq!(second.get_dataset(&d.id).await.unwrap(), Some(d));
