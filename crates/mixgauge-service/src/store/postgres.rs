@@ -266,10 +266,17 @@ impl PgStore {
     }
 
     async fn client(&self) -> Result<deadpool_postgres::Object, StoreError> {
-        self.pool
-            .get()
-            .await
-            .map_err(|e| StoreError::Postgres(format!("no connection to PostgreSQL: {e}")))
+        self.pool.get().await.map_err(|e| {
+            let cause = match &e {
+                deadpool_postgres::PoolError::Backend(b) => std::error::Error::source(b)
+                    .map_or_else(|| format!(": {b}"), |c| format!(": {c}")),
+                other => format!(": {other}"),
+            };
+            StoreError::Postgres(format!(
+                "no connection to PostgreSQL{cause}; check that the server runs and \
+                     the store URL's host, port, user and database"
+            ))
+        })
     }
 
     async fn migrate(&self) -> Result<(), StoreError> {
