@@ -22,7 +22,6 @@ use axum::extract::State;
 use axum::http::StatusCode;
 use axum::response::IntoResponse;
 use axum::routing::get;
-use mixgauge_data::Format;
 use mixgauge_engine::{Error as EngineError, ModelDocument};
 use mixgauge_select::{SweepPlan, SweepSettings};
 use tokio::sync::watch;
@@ -32,7 +31,7 @@ use crate::error::StoreError;
 use crate::options::{DataOptions, Prepared, ReadLimits, prepare};
 use crate::store::postgres::{NewTask, Reported, SweepClaim, SweepPhase, TaskClaim, TaskOutcome};
 use crate::store::{Finish, PgStore, Store, SweepJob};
-use crate::worker::{complete, sweep_input};
+use crate::worker::{JobInputs, complete, read_job, sweep_input};
 
 /// How long an idle worker waits before looking for work again.
 const IDLE_POLL: Duration = Duration::from_millis(200);
@@ -266,25 +265,15 @@ impl Worker {
         {
             return Ok(Ok(Arc::clone(l)));
         }
-        let (Some(meta), Some(bytes)) = (
-            self.store.get_dataset(&job.dataset).await?,
-            self.store.dataset_bytes(&job.dataset).await?,
-        ) else {
-            return Ok(Err(Unusable(format!(
-                "dataset {} no longer exists; upload it again and create a new sweep",
-                job.dataset
-            ))));
+        let JobInputs {
+            bytes,
+            format,
+            settings,
+            options,
+        } = match read_job(self.store.as_ref(), job).await? {
+            Ok(inputs) => inputs,
+            Err(why) => return Ok(Err(Unusable(why))),
         };
-        let format = match meta.format.as_str() {
-            "csv" => Format::Csv,
-            "npy" => Format::Npy,
-            "json" => Format::Json,
-            other => return Err(StoreError::Corrupt(format!("dataset format {other:?}"))),
-        };
-        let settings: SweepSettings = serde_json::from_str(&job.settings)
-            .map_err(|e| StoreError::Corrupt(format!("settings of sweep {}: {e}", job.id)))?;
-        let options: DataOptions = serde_json::from_str(&job.data)
-            .map_err(|e| StoreError::Corrupt(format!("data options of sweep {}: {e}", job.id)))?;
         let limits = self.limits;
         let built = tokio::task::spawn_blocking(move || -> Result<Loaded, Unusable> {
             let prepared =

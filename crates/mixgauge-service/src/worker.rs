@@ -176,25 +176,15 @@ async fn execute(
     job: &SweepJob,
     cancel: Arc<AtomicBool>,
 ) -> Result<Finish, StoreError> {
-    let (Some(meta), Some(bytes)) = (
-        state.store.get_dataset(&job.dataset).await?,
-        state.store.dataset_bytes(&job.dataset).await?,
-    ) else {
-        return Ok(Finish::Failed(format!(
-            "dataset {} no longer exists; upload it again and create a new sweep",
-            job.dataset
-        )));
+    let JobInputs {
+        bytes,
+        format,
+        settings,
+        options,
+    } = match read_job(state.store.as_ref(), job).await? {
+        Ok(inputs) => inputs,
+        Err(why) => return Ok(Finish::Failed(why)),
     };
-    let format = match meta.format.as_str() {
-        "csv" => Format::Csv,
-        "npy" => Format::Npy,
-        "json" => Format::Json,
-        other => return Err(StoreError::Corrupt(format!("dataset format {other:?}"))),
-    };
-    let settings: SweepSettings = serde_json::from_str(&job.settings)
-        .map_err(|e| StoreError::Corrupt(format!("settings of sweep {}: {e}", job.id)))?;
-    let options: DataOptions = serde_json::from_str(&job.data)
-        .map_err(|e| StoreError::Corrupt(format!("data options of sweep {}: {e}", job.id)))?;
 
     let (progress_tx, mut progress_rx) = watch::channel(JobProgress::default());
     let queue = state.queue.clone();
@@ -233,6 +223,47 @@ async fn execute(
         state.metrics.sweep_took(started.elapsed());
     }
     Ok(how)
+}
+
+/// What a job needs from the store before any fitting: the dataset's bytes and format, the
+/// sweep's settings and read options.
+pub(crate) struct JobInputs {
+    pub(crate) bytes: Vec<u8>,
+    pub(crate) format: Format,
+    pub(crate) settings: SweepSettings,
+    pub(crate) options: DataOptions,
+}
+
+/// Reads a job's inputs; the inner `Err` is the reason the job fails (its dataset is gone).
+pub(crate) async fn read_job(
+    store: &dyn crate::store::Store,
+    job: &SweepJob,
+) -> Result<Result<JobInputs, String>, StoreError> {
+    let (Some(meta), Some(bytes)) = (
+        store.get_dataset(&job.dataset).await?,
+        store.dataset_bytes(&job.dataset).await?,
+    ) else {
+        return Ok(Err(format!(
+            "dataset {} no longer exists; upload it again and create a new sweep",
+            job.dataset
+        )));
+    };
+    let format = match meta.format.as_str() {
+        "csv" => Format::Csv,
+        "npy" => Format::Npy,
+        "json" => Format::Json,
+        other => return Err(StoreError::Corrupt(format!("dataset format {other:?}"))),
+    };
+    let settings: SweepSettings = serde_json::from_str(&job.settings)
+        .map_err(|e| StoreError::Corrupt(format!("settings of sweep {}: {e}", job.id)))?;
+    let options: DataOptions = serde_json::from_str(&job.data)
+        .map_err(|e| StoreError::Corrupt(format!("data options of sweep {}: {e}", job.id)))?;
+    Ok(Ok(JobInputs {
+        bytes,
+        format,
+        settings,
+        options,
+    }))
 }
 
 /// The blocking part: read, sweep, render, and the models in the data's own units.

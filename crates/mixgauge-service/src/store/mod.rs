@@ -189,6 +189,39 @@ pub enum Finish {
     Cancelled,
 }
 
+/// What [`Finish`] writes to a job's row: state, result, report, error, models, profile.
+pub(crate) type FinishColumns = (
+    &'static str,
+    Option<String>,
+    Option<String>,
+    Option<String>,
+    Vec<StoredModel>,
+    Option<String>,
+);
+
+impl Finish {
+    /// The columns a store writes for this ending.
+    pub(crate) fn into_columns(self) -> FinishColumns {
+        match self {
+            Finish::Succeeded {
+                result,
+                report,
+                models,
+                profile,
+            } => (
+                "succeeded",
+                Some(result),
+                Some(report),
+                None,
+                models,
+                profile,
+            ),
+            Finish::Failed(e) => ("failed", None, None, Some(e), Vec::new(), None),
+            Finish::Cancelled => ("cancelled", None, None, None, Vec::new(), None),
+        }
+    }
+}
+
 /// A full-data model of a finished sweep.
 #[derive(Clone, Debug, PartialEq, Eq)]
 pub struct StoredModel {

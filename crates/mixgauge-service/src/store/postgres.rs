@@ -664,23 +664,7 @@ impl PgStore {
     }
 
     async fn end(&self, id: i64, token: Option<i64>, how: Finish) -> Result<bool, StoreError> {
-        let (state, result, report, error, models, profile) = match how {
-            Finish::Succeeded {
-                result,
-                report,
-                models,
-                profile,
-            } => (
-                "succeeded",
-                Some(result),
-                Some(report),
-                None,
-                models,
-                profile,
-            ),
-            Finish::Failed(e) => ("failed", None, None, Some(e), Vec::new(), None),
-            Finish::Cancelled => ("cancelled", None, None, None, Vec::new(), None),
-        };
+        let (state, result, report, error, models, profile) = how.into_columns();
         let mut c = self.client().await?;
         let tx = c.transaction().await.map_err(pg)?;
         let n = tx

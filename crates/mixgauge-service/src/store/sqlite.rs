@@ -416,23 +416,7 @@ impl Store for SqliteStore {
 
     async fn finish(&self, id: i64, how: Finish) -> Result<bool, StoreError> {
         self.call(move |c| {
-            let (state, result, report, error, models, profile) = match how {
-                Finish::Succeeded {
-                    result,
-                    report,
-                    models,
-                    profile,
-                } => (
-                    "succeeded",
-                    Some(result),
-                    Some(report),
-                    None,
-                    models,
-                    profile,
-                ),
-                Finish::Failed(e) => ("failed", None, None, Some(e), Vec::new(), None),
-                Finish::Cancelled => ("cancelled", None, None, None, Vec::new(), None),
-            };
+            let (state, result, report, error, models, profile) = how.into_columns();
             // The result, the report and the models land together or not at all.
             let tx = c.transaction()?;
             let n = tx.execute(
