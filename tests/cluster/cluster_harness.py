@@ -44,7 +44,7 @@ class Worker:
     """One `mixgauge worker` process."""
 
     def __init__(self, binary: Path, name: str, store: str, blobs: str, workdir: Path,
-                 lease: float):
+                 lease: float, env: dict[str, str] | None = None):
         self.name = name
         self.port = free_port()
         self.log_path = workdir / f"{name}.log"
@@ -55,7 +55,7 @@ class Worker:
         ]
         with open(self.log_path, "ab") as log:
             self.proc = subprocess.Popen(cmd, stdout=log, stderr=subprocess.STDOUT,
-                                         stdin=subprocess.DEVNULL)
+                                         stdin=subprocess.DEVNULL, env=env)
 
     def wait_ready(self, http, timeout: float = 30) -> None:
         deadline = time.monotonic() + timeout
@@ -96,23 +96,30 @@ class Worker:
 
 
 class Cluster:
-    """The API and `workers` workers over a fresh schema; call :meth:`stop` at the end."""
+    """The API and `workers` workers over a fresh schema; call :meth:`stop` at the end. Blobs go
+    to a directory under ``workdir`` unless ``blobs`` names another location; ``env`` is every
+    process's whole environment (the caller's when ``None``)."""
 
     def __init__(self, binary: Path, workdir: Path, schema: str, workers: int = 3,
-                 lease: float = 3.0):
+                 lease: float = 3.0, blobs: str | None = None,
+                 env: dict[str, str] | None = None):
         self.schema = schema
         psql(f"DROP SCHEMA IF EXISTS {schema} CASCADE; CREATE SCHEMA {schema}")
         self.store = scoped_url(schema)
         self.sql_url = self.store
-        blob_dir = workdir / "blobs"
-        blob_dir.mkdir(parents=True, exist_ok=True)
-        self.blobs = blob_dir.resolve().as_uri() + "/"
+        workdir.mkdir(parents=True, exist_ok=True)
+        if blobs is None:
+            blob_dir = workdir / "blobs"
+            blob_dir.mkdir(parents=True, exist_ok=True)
+            blobs = blob_dir.resolve().as_uri() + "/"
+        self.blobs = blobs
+        self.workdir = workdir
         self.api = ServeProcess(
             binary, workdir / "api-data", workdir / "api.log",
-            args=["--store", self.store, "--blobs", self.blobs, "--workers", "0"],
+            args=["--store", self.store, "--blobs", self.blobs, "--workers", "0"], env=env,
         ).start()
         self.workers = [
-            Worker(binary, f"w{i + 1}", self.store, self.blobs, workdir, lease)
+            Worker(binary, f"w{i + 1}", self.store, self.blobs, workdir, lease, env)
             for i in range(workers)
         ]
         for w in self.workers:

@@ -22,11 +22,12 @@ DATA = {"labels": "regime"}
 TASKS = 9 * 2 * 2 * 6
 
 
-def embedded_run(binary: Path, workdir: Path, csv: Path) -> tuple[str, str]:
-    """The same sweep in one process on the embedded store: (result, report) as stored."""
+def embedded_run(binary: Path, workdir: Path, csv: Path, settings: dict = SETTINGS,
+                 data: dict = DATA) -> tuple[str, str]:
+    """A sweep in one process on the embedded store: (result, report) as stored."""
     server = ServeProcess(binary, workdir / "single", workdir / "single.log").start()
     try:
-        sweep = start_sweep(server, upload(server, csv), SETTINGS, DATA)
+        sweep = start_sweep(server, upload(server, csv), settings, data)
         job = wait_final(server, sweep)
         assert job["state"] == "succeeded", job
     finally:

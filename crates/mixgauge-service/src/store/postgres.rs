@@ -282,6 +282,10 @@ impl PgStore {
     async fn migrate(&self) -> Result<(), StoreError> {
         let mut client = self.client().await?;
         let tx = client.transaction().await.map_err(pg)?;
+        // "already exists, skipping" notices would only clutter the log at every start.
+        tx.batch_execute("SET LOCAL client_min_messages = warning")
+            .await
+            .map_err(pg)?;
         tx.execute("SELECT pg_advisory_xact_lock($1)", &[&MIGRATION_LOCK])
             .await
             .map_err(pg)?;
