@@ -2,9 +2,9 @@
 //! one task at a time (`mixgauge worker`, or `mixgauge serve --store postgres://…` with
 //! `--workers` above 0).
 //!
-//! Each loop turn a worker first looks for sweep-level work — a queued sweep to split into fit
-//! tasks, or a sweep whose every task has reported, to assemble — and otherwise leases one fit
-//! task. While it works it renews its lease every third of the lease time; a renewal that fails
+//! Each loop turn a worker leases one fit task, and looks for sweep-level work — a queued sweep
+//! to split into fit tasks, or a sweep whose every task has reported, to assemble — when it has
+//! no task, right after reporting a sweep's last one, and at least once a second. While it works it renews its lease every third of the lease time; a renewal that fails
 //! (the lease ran out and another worker took the work, or the sweep was cancelled) stops the
 //! fit. The plan is rebuilt from the dataset and settings by every worker that needs it — it is
 //! deterministic — and kept for the next task of the same sweep, so a dataset is read once per
@@ -35,6 +35,9 @@ use crate::worker::{JobInputs, complete, read_job, sweep_input};
 
 /// How long an idle worker waits before looking for work again.
 const IDLE_POLL: Duration = Duration::from_millis(200);
+
+/// Longest a busy worker goes without looking for sweep-level work.
+const SWEEP_CHECK: Duration = Duration::from_secs(1);
 
 /// Sweeps whose plan and rows a worker keeps in memory.
 const KEPT_SWEEPS: usize = 2;
@@ -67,7 +70,7 @@ impl WorkerStats {
              # HELP mixgauge_worker_refused_total Reports the store refused (the lease was lost).\n\
              # TYPE mixgauge_worker_refused_total counter\n\
              mixgauge_worker_refused_total {}\n\
-             # HELP mixgauge_worker_claim_seconds_total Time spent leasing fit tasks.\n\
+             # HELP mixgauge_worker_claim_seconds_total Time spent leasing fit tasks and looking for sweep-level work.\n\
              # TYPE mixgauge_worker_claim_seconds_total counter\n\
              mixgauge_worker_claim_seconds_total {}\n\
              # HELP mixgauge_worker_report_seconds_total Time spent recording fit outcomes.\n\
@@ -116,6 +119,10 @@ struct Worker {
     limits: ReadLimits,
     kept: Arc<Mutex<KeptSweeps>>,
     stats: Arc<WorkerStats>,
+    /// Set after reporting a sweep's last task: look for its assembly next.
+    sweep_due: Arc<AtomicBool>,
+    /// When this loop last looked for sweep-level work.
+    sweep_checked: Arc<Mutex<Instant>>,
 }
 
 /// How to run one worker process.
@@ -165,6 +172,8 @@ impl ClusterWorkers {
                     limits: crate::state::Limits::default().read,
                     kept: Arc::clone(&kept),
                     stats: Arc::clone(&stats),
+                    sweep_due: Arc::new(AtomicBool::new(true)),
+                    sweep_checked: Arc::new(Mutex::new(Instant::now())),
                 };
                 tokio::spawn(w.run(rx.clone()))
             })
@@ -215,9 +224,20 @@ impl Worker {
     }
 
     /// One piece of work; false when there was none.
+    ///
+    /// Fit tasks come first: looking for sweep-level work costs a round trip, so a busy worker
+    /// does it only when it runs out of tasks, right after it reported a sweep's last task
+    /// (so the result is built at once), or every [`SWEEP_CHECK`] (so a newly queued sweep is
+    /// split while an older one is still being fitted).
     async fn turn(&self, shutdown: &watch::Receiver<bool>) -> Result<bool, StoreError> {
-        if let Some(claim) = self.store.claim_sweep(&self.name, self.lease).await? {
-            self.sweep_work(claim).await?;
+        let due = self.sweep_due.swap(false, Ordering::Relaxed)
+            || self
+                .sweep_checked
+                .lock()
+                .expect("sweep check lock")
+                .elapsed()
+                >= SWEEP_CHECK;
+        if due && self.sweep_turn().await? {
             return Ok(true);
         }
         let started = Instant::now();
@@ -226,6 +246,22 @@ impl Worker {
         match claim {
             Some(task) => {
                 self.fit_task(task, shutdown).await?;
+                Ok(true)
+            }
+            None if !due => self.sweep_turn().await,
+            None => Ok(false),
+        }
+    }
+
+    /// Claims and does one piece of sweep-level work, if there is any.
+    async fn sweep_turn(&self) -> Result<bool, StoreError> {
+        *self.sweep_checked.lock().expect("sweep check lock") = Instant::now();
+        let started = Instant::now();
+        let claim = self.store.claim_sweep(&self.name, self.lease).await?;
+        WorkerStats::add(&self.stats.claim_micros, started.elapsed());
+        match claim {
+            Some(claim) => {
+                self.sweep_work(claim).await?;
                 Ok(true)
             }
             None => Ok(false),
@@ -255,15 +291,19 @@ impl Worker {
         })
     }
 
-    async fn load(&self, job: &SweepJob) -> Result<Result<Arc<Loaded>, Unusable>, StoreError> {
-        if let Some((_, l)) = self
-            .kept
+    /// A sweep this worker has loaded before.
+    fn kept(&self, sweep: i64) -> Option<Arc<Loaded>> {
+        self.kept
             .lock()
             .expect("kept sweeps lock")
             .iter()
-            .find(|(id, _)| *id == job.id)
-        {
-            return Ok(Ok(Arc::clone(l)));
+            .find(|(id, _)| *id == sweep)
+            .map(|(_, l)| Arc::clone(l))
+    }
+
+    async fn load(&self, job: &SweepJob) -> Result<Result<Arc<Loaded>, Unusable>, StoreError> {
+        if let Some(l) = self.kept(job.id) {
+            return Ok(Ok(l));
         }
         let JobInputs {
             bytes,
@@ -387,10 +427,14 @@ impl Worker {
         claim: TaskClaim,
         shutdown: &watch::Receiver<bool>,
     ) -> Result<(), StoreError> {
-        let Some(job) = self.store.get_sweep(claim.sweep).await? else {
-            return Ok(());
+        let loaded = match self.kept(claim.sweep) {
+            Some(l) => Ok(l),
+            None => match self.store.get_sweep(claim.sweep).await? {
+                Some(job) => self.load(&job).await?,
+                None => return Ok(()),
+            },
         };
-        let loaded = match self.load(&job).await? {
+        let loaded = match loaded {
             Ok(l) => l,
             Err(Unusable(why)) => {
                 // Planning read the same dataset without complaint; report it as the fit's
@@ -463,6 +507,9 @@ impl Worker {
         match reported {
             Reported::Recorded { done, total } => {
                 self.stats.tasks.fetch_add(1, Ordering::Relaxed);
+                if done >= total {
+                    self.sweep_due.store(true, Ordering::Relaxed);
+                }
                 tracing::debug!(worker = %self.name, sweep = claim.sweep, task = claim.task, done, total, "fit task done");
             }
             Reported::Refused => {
